@@ -15,11 +15,52 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["Finding", "STEP_IDS", "json_safe", "not_assessed"]
+__all__ = ["Finding", "STEP_IDS", "Z_LLN", "Z_ULN", "json_safe", "level", "not_assessed",
+           "severity", "value"]
 
 #: The steps of the interpretation chain, in order.
 STEP_IDS: tuple[str, ...] = ("validity", "airflow", "volumes", "gas_transfer", "bronchodilator",
                              "resistance", "change", "synthesis")
+
+
+#: z at the lower limit of normal (5th percentile) and the upper limit (95th); INTERP-2022 §3.1.
+Z_LLN = -1.645
+Z_ULN = 1.645
+
+
+def level(z: float | None) -> str | None:
+    """``"low"`` (z < −1.645), ``"high"`` (z > +1.645), ``"normal"`` or ``None`` without z."""
+    if z is None:
+        return None
+    if z < Z_LLN:
+        return "low"
+    if z > Z_ULN:
+        return "high"
+    return "normal"
+
+
+def severity(z: float | None) -> str | None:
+    """Severity band of a low z: severe z < −4, moderate −4 <= z < −2.5, mild −2.5 <= z < −1.645.
+
+    Returns ``None`` for z >= −1.645 or missing z. The printed INTERP-2022 bands
+    (−1.65 to −2.5, −2.51 to −4.0, < −4.1) leave gaps; half-open bands close them (our choice,
+    standards.md §3.4).
+    """
+    if z is None:
+        return None
+    if z < -4.0:
+        return "severe"
+    if z < -2.5:
+        return "moderate"
+    if z < Z_LLN:
+        return "mild"
+    return None
+
+
+def value(values: dict[str, Any], block: str, param: str, key: str = "z") -> Any:
+    """``values[block][param][key]`` or ``None`` when any level is absent."""
+    item = (values.get(block) or {}).get(param)
+    return None if item is None else item.get(key)
 
 
 def json_safe(obj: Any) -> Any:

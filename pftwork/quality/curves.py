@@ -9,7 +9,10 @@ Definitions (SPIRO-2019 unless marked *our own*):
 
 * time zero: back-extrapolation of the tangent to the volume-time curve at peak flow
   (SPIRO-2019; ATS/ERS 2005 Table 6); BEV is the volume exhaled before time zero.
-* end of expiration: the maximum of the smoothed volume (the turn to the inspiratory limb);
+* end of expiration: the turn to the inspiratory limb: from the maximum of the volume after a
+  further 0.2 s moving average, the first fall of 0.010 L below it marks inspiration, and the
+  last sample before that with non-negative flow is the end (so noise on a long plateau does not
+  move it); without an inspiratory limb, the maximum itself;
   FET is its time after time zero.
 * plateau: volume change in the last 1 s of expiration < 0.025 L (SPIRO-2019 EOFE 1).
 * FEVt is the volume at time zero + t, BEV included (the curve is not shifted).
@@ -55,6 +58,7 @@ ABRUPT_END_FLOW_L_S = 0.20
 #: Longest plotted array (points).
 PLOT_POINTS = 400
 _SMOOTH_WINDOW_S = 0.05
+_END_WINDOW_S = 0.2
 _MAX_VOLUME_L = 15.0
 
 
@@ -160,7 +164,7 @@ def analyse_curve(curve: Curve, field: str = "spirometry.pre.trials[0].curve") -
     window = max(5, int(round(_SMOOTH_WINDOW_S * rate)) | 1)
     vs = _smooth(v, window, 0, 1.0)
     flow = _smooth(v, window, 1, 1.0 / rate)
-    i_end = int(np.argmax(vs))
+    i_end = _end_of_expiration(vs, flow, rate)
     i_pef = int(np.argmax(flow[: i_end + 1]))
     pef = float(flow[i_pef])
     if pef <= 0.0 or i_end == 0:
@@ -271,6 +275,23 @@ def _smooth(v: np.ndarray, window: int, deriv: int, step: float) -> np.ndarray:
             poly = np.polyder(poly)
         out[rows] = np.polyval(poly, x[rows.start - lo: rows.stop - lo])
     return out / step**deriv
+
+
+def _end_of_expiration(vs: np.ndarray, flow: np.ndarray, rate: float) -> int:
+    """Index of the end of expiration (see the module docstring)."""
+    box = max(1, int(round(_END_WINDOW_S * rate)))
+    avg = np.convolve(vs, np.full(box, 1.0 / box), mode="same")
+    avg[: box // 2] = -np.inf
+    avg[len(vs) - box // 2:] = -np.inf
+    i_pk = int(np.argmax(avg)) if len(vs) > 2 * box else int(np.argmax(vs))
+    i_pk = i_pk - box // 2 + int(np.argmax(vs[max(0, i_pk - box // 2): i_pk + box // 2 + 1]))
+    i_pk = max(i_pk, 0)
+    below = vs[i_pk:] < vs[i_pk] - 0.010
+    if not below.any():
+        return i_pk
+    j = i_pk + int(np.argmax(below))
+    ok = np.nonzero(flow[i_pk:j] >= 0.0)[0]
+    return i_pk + int(ok[-1]) if ok.size else i_pk
 
 
 def _crossing(vol: np.ndarray, lo: int, hi: int, target: float) -> int:

@@ -119,6 +119,8 @@ SETS: dict[str, dict[str, Any]] = {
         "erratum": None,
         "stem": "gli_2021",
         "ancestry_terms": False,
+        # this source's columns: a1 = age coefficient, a2 = height coefficient
+        "m_columns": {"age": "a1", "height": "a2"},
         # M forms (height, age) and S age form as printed in Hall 2021 table 3 (standards.md 1.6.1).
         "parameters": [
             ("TLC", "TLC", None, (5.0, 80.0), (LOG, LOG), LIN, False, 1.0, None),
@@ -180,7 +182,7 @@ def _spline_columns(rows: list[dict[str, str]], prefix: str) -> tuple[float, int
         ages.append(float(row["age"]))
         for k, v in values.items():
             cols[k].append(v)
-    for a, b in zip(ages, ages[1:]):
+    for a, b in zip(ages[:-1], ages[1:], strict=True):
         if abs((b - a) - AGE_STEP) > 1e-12:
             raise ValueError(f"{prefix}: age grid not uniform at {a} -> {b}")
     splines: dict[str, Any] = {}
@@ -199,6 +201,7 @@ def _model(spec: dict[str, Any], param: tuple, sex: str, sex_label: str,
     name, stem, unit, _age_range, (h_form, a_form), s_form, l_log_age, scale, restriction = param
     column = f"{stem}_{sex_label}"
     c = coeffs[column]
+    m_cols = spec.get("m_columns", {"height": "a1", "age": "a2"})
 
     def get(key: str) -> float:
         value = c.get(key)
@@ -209,8 +212,8 @@ def _model(spec: dict[str, Any], param: tuple, sex: str, sex_label: str,
         "unit": unit,
         "sex": sex,
         "scale": scale,
-        "m": {"intercept": get("a0"), "height": get("a1"), "height_form": h_form,
-              "age": get("a2"), "age_form": a_form},
+        "m": {"intercept": get("a0"), "height": get(m_cols["height"]), "height_form": h_form,
+              "age": get(m_cols["age"]), "age_form": a_form},
         "s": {"intercept": get("p0"), "age": get("p1"), "age_form": s_form},
         "l": {"intercept": get("q0"), "log_age": get("q1") if l_log_age else 0.0},
         "restriction": restriction,

@@ -176,7 +176,7 @@ def build() -> dict[str, dict]:
     rng = np.random.default_rng(4)
     sex, age, h = "female", 46.2, 152.0
     fev1, fvc = spiro_values(sex, age, h, -2.6, -3.0)
-    dl = diffusion_block(sex, age, h, -1.9, -3.2, 13.1, rng)
+    dl = diffusion_block(sex, age, h, -1.4, -3.6, 13.1, rng)
     cases["restriction_chest_wall_bookbinder"] = case(
         "demo-cw-04", sex, age, h, 50.0, "2026-08-19", "scoliosis; exertional breathlessness",
         {"scenario": "Bookbinder with a long-standing thoracic scoliosis and breathlessness "

@@ -21,7 +21,7 @@ RULE = ("Obstruction when the pre-bronchodilator FEV1/FVC z-score is below -1.64
 #: GOLD fixed post-bronchodilator FEV1/FVC ratio (standards.md §3.9, VERIFIED).
 GOLD_RATIO = 0.70
 #: Empey index threshold, FEV1 (mL) / PEF (L/min) (standards.md §3.8, VERIFIED [S21a]).
-EMPEY_LIMIT = 10.0
+EMPEY_LIMIT = 10.0  # applied in pftwork.quality.shape; repeated here for the thresholds record
 _KEYS = ("obstruction", "severity", "ratio_z", "fev1_z", "fvc_z", "fev1_low", "fvc_low",
          "gold_grade", "upper_airway_flag")
 
@@ -45,31 +45,34 @@ def gold_grade(post_ratio: float | None, post_fev1_pct: float | None) -> int | N
 
 def upper_airway_indices(values: dict[str, Any], curve_indices: dict[str, Any] | None = None
                          ) -> dict[str, Any]:
-    """Screening indices for upper-airway obstruction from the reported values (and curves).
+    """Published upper-airway screening indices, from the raw curve when analysed, else values.
+
+    Parameters
+    ----------
+    values : dict
+        Values block (pre FEV1, PEF, FEV0_5, FEF50, FIF50 used when present).
+    curve_indices : dict, optional
+        ``UpperAirwayIndices`` of the best manoeuvre's curve, as a dict (from the quality layer).
 
     Returns
     -------
     dict
-        ``empey`` (FEV1 mL / PEF L/min), ``fev1_fev05`` (FEV1/FEV0.5), ``flags`` (names of the
-        indices past their published thresholds) plus any ``curve_indices`` given.
+        ``fev1_pef_ml_per_l_min``, ``fev1_fev0_5``, ``fif50_l_min``, ``fef50_fif50``, ``flags``
+        (thresholds met, each naming its source) and ``from`` (``"curve"`` or ``"values"``);
+        ``None`` when no index could be computed.
     """
-    fev1 = value(values, "pre", "FEV1", "measured")
-    pef = value(values, "pre", "PEF", "measured")
-    fev05 = value(values, "pre", "FEV0_5", "measured")
-    out: dict[str, Any] = {"empey": None, "fev1_fev05": None, "flags": []}
-    if fev1 and pef:
-        out["empey"] = (fev1 * 1000.0) / (pef * 60.0)
-        if out["empey"] > EMPEY_LIMIT:
-            out["flags"].append("Empey index > 10")
-    if fev1 and fev05:
-        out["fev1_fev05"] = fev1 / fev05
-        if out["fev1_fev05"] >= 1.5:
-            out["flags"].append("FEV1/FEV0.5 >= 1.5")
-    for name, item in (curve_indices or {}).items():
-        out[name] = item
-        if isinstance(item, dict) and item.get("flag"):
-            out["flags"].append(str(item.get("label") or name))
-    return out
+    if curve_indices:
+        return dict(curve_indices) | {"from": "curve"}
+    from pftwork.quality.shape import upper_airway_indices as _indices
+
+    m = {p: value(values, "pre", p, "measured") for p in ("FEV1", "PEF", "FEV0_5", "FEF50", "FIF50")}
+    ua = _indices(m["FEV1"], m["PEF"], m["FEV0_5"], m["FEF50"], m["FIF50"])
+    out = {"fev1_pef_ml_per_l_min": ua.fev1_pef_ml_per_l_min, "fev1_fev0_5": ua.fev1_fev0_5,
+           "fif50_l_min": ua.fif50_l_min, "fef50_fif50": ua.fef50_fif50,
+           "flags": list(ua.flags), "from": "values"}
+    computed = [k for k in ("fev1_pef_ml_per_l_min", "fev1_fev0_5", "fif50_l_min", "fef50_fif50")
+                if out[k] is not None]
+    return out if computed else {"flags": [], "from": None}
 
 
 def airflow(case: Case, values: dict[str, Any], quality: dict[str, Any],
@@ -125,8 +128,7 @@ def airflow(case: Case, values: dict[str, Any], quality: dict[str, Any],
         status = "normal"
     text += _gold_text(case, values, data, caveats)
     uao = upper_airway_indices(values, curve_indices)
-    data["upper_airway_flag"] = bool(uao["flags"]) if (uao["empey"] is not None or curve_indices
-                                                       or uao["fev1_fev05"] is not None) else None
+    data["upper_airway_flag"] = bool(uao["flags"]) if uao["from"] else None
     if uao["flags"]:
         text += (" Consider upper-airway obstruction (" + "; ".join(uao["flags"]) + "): "
                  "confirm with the flow-volume loop shape, imaging or endoscopy.")

@@ -7,11 +7,14 @@ Adjustment naming: ``*_factor`` functions return a dimensionless multiplier; ``h
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 from numpy.typing import ArrayLike
 
 from pftwork.case_model import Case
 from pftwork.interpret.finding import Z_LLN, Z_ULN, Finding, level, not_assessed, severity, value
+from pftwork.units import DLCO_SI_TO_TRADITIONAL, KPA_PER_MMHG, barometric_pressure_kpa
 
 __all__ = [
     "KPA_TO_MMHG",
@@ -26,9 +29,9 @@ __all__ = [
 ]
 
 #: 1 mmol/min/kPa = 2.987 mL/min/mmHg (DLCO-2017 / standards.md §4.6, VERIFIED-2nd).
-SI_TO_TRADITIONAL = 2.987
+SI_TO_TRADITIONAL = DLCO_SI_TO_TRADITIONAL
 #: 1 kPa in mmHg (101.325 kPa = 760 mmHg).
-KPA_TO_MMHG = 760.0 / 101.325
+KPA_TO_MMHG = 1.0 / KPA_PER_MMHG
 
 
 def hb_factor(hb_g_dl: ArrayLike, sex: str, age_years: ArrayLike) -> np.ndarray:
@@ -75,8 +78,7 @@ def barometric_kpa_at(altitude_m: ArrayLike) -> np.ndarray:
 
     ``P = 101.325 · (1 − 2.25577e-5·h)^5.25588`` (troposphere, h in m).
     """
-    h = np.asarray(altitude_m, dtype=float)
-    return 101.325 * (1.0 - 2.25577e-5 * h) ** 5.25588
+    return np.asarray(barometric_pressure_kpa(np.asarray(altitude_m, dtype=float)))
 
 
 def inspired_po2_mmhg(barometric_kpa: ArrayLike) -> np.ndarray:

@@ -48,18 +48,25 @@ def validity(case: Case, values: dict[str, Any], quality: dict[str, Any]) -> Fin
     """
     fev1_g, fvc_g = quality.get("FEV1_grade"), quality.get("FVC_grade")
     dlco_g = quality.get("DLCO_grade")
+    post = ((quality.get("spirometry") or {}).get("post") or {}) if quality.get("spirometry") else {}
+    post_grades = [g for g in (post.get("FEV1_grade"), post.get("FVC_grade")) if g]
     graded = [g for g in (fev1_g, fvc_g, dlco_g) if g]
     low = sorted({g for g in graded if g in LOW_GRADES})
     caveats = list(case.warnings) + [str(n) for n in quality.get("notes") or []]
     data: dict[str, Any] = {
         "stop": False, "fev1_grade": fev1_g, "fvc_grade": fvc_g, "dlco_grade": dlco_g,
-        "graded": bool(graded), "low_quality": bool(low),
+        "graded": bool(graded), "low_quality": bool(low) or "F" in graded,
         "fev1_usable": None if fev1_g is None else fev1_g != "F",
         "fvc_usable": None if fvc_g is None else fvc_g != "F",
         "diffusion_usable": None if dlco_g is None else dlco_g != "F",
     }
+    extrapolated = sorted(f"{blk}.{p}" for blk in ("pre", "post", "volumes", "diffusion")
+                          for p, item in (values.get(blk) or {}).items() if item.get("extrapolated"))
     evidence = {"FEV1_grade": fev1_g, "FVC_grade": fvc_g, "DLCO_grade": dlco_g,
-                "has_measured_values": _has_measured(values)}
+                "post_grades": post or None, "has_measured_values": _has_measured(values),
+                "extrapolated": extrapolated}
+    data["post_low_quality"] = any(g in LOW_GRADES or g == "F" for g in post_grades)
+    data["extrapolated"] = extrapolated
     thresholds = {"interpret": "A, B, C", "report_with_flag": "D, E, U", "not_usable": "F"}
     if not evidence["has_measured_values"]:
         data["stop"] = True
@@ -76,6 +83,11 @@ def validity(case: Case, values: dict[str, Any], quality: dict[str, Any]) -> Fin
         parts.append(f"Spirometry quality: FEV1 grade {fev1_g or '–'}, FVC grade {fvc_g or '–'}.")
     else:
         parts.append("Spirometry quality not assessable (reported values only, no trials).")
+    if post_grades:
+        parts.append(f"Post-bronchodilator grades: FEV1 {post.get('FEV1_grade') or '–'}, "
+                     f"FVC {post.get('FVC_grade') or '–'}"
+                     + (" (low: read the bronchodilator response with caution)."
+                        if data["post_low_quality"] else "."))
     if dlco_g:
         parts.append(f"Gas transfer quality grade {dlco_g}.")
     for name, grade in (("FEV1", fev1_g), ("FVC", fvc_g)):
@@ -83,9 +95,14 @@ def validity(case: Case, values: dict[str, Any], quality: dict[str, Any]) -> Fin
             parts.append(f"{name} is not usable (grade F) and is not interpreted.")
     if dlco_g == "F":
         parts.append("Gas transfer is not usable (grade F) and is not interpreted.")
+    if extrapolated:
+        parts.append("Outside the published range of the reference equations (extrapolated): "
+                     + ", ".join(extrapolated) + "; their z-scores are less reliable.")
+    unusable = [g for g in (fev1_g, fvc_g, dlco_g) if g == "F"]
     if low:
         parts.append(f"Low-quality data (grade {', '.join(low)}): conclusions below are "
                      "reported but should be read with caution.")
+    if low or unusable:
         status = "low_quality"
     elif graded:
         status = "acceptable"

@@ -35,6 +35,8 @@ __all__ = [
     "compute_values",
     "entry",
     "resolve_equations",
+    "spirometry_measured",
+    "value_at_z",
 ]
 
 #: Default equation set per domain (design.md §3).
@@ -135,7 +137,7 @@ def assess_quality(case: Case) -> QualityResult:
         if spiro and spiro.post and spiro.post.trials:
             post = q.assess_spirometry_set(spiro.post.trials, age, "post")
         if case.volumes is not None and case.volumes.trials:
-            vol = q.assess_plethysmography(case.volumes)
+            vol = q.assess_plethysmography(case.volumes, _largest_vc(case, pre, post))
         if case.diffusion is not None and case.diffusion.trials:
             diff = q.assess_diffusion(case.diffusion.trials, _largest_vc(case, pre, post))
     block: dict[str, Any] = {}
@@ -154,7 +156,7 @@ def _largest_vc(case: Case, pre: Any, post: Any) -> float | None:
     candidates: list[float] = []
     for qset, sset in ((pre, case.spirometry and case.spirometry.pre),
                        (post, case.spirometry and case.spirometry.post)):
-        measured = _spiro_measured(sset, qset) if sset else {}
+        measured = spirometry_measured(sset, qset) if sset else {}
         candidates += [measured[k] for k in ("FVC", "VC") if measured.get(k) is not None]
     if case.volumes is not None:
         candidates += [v for k, v in case.volumes.reported.items() if k == "VC" and v]
@@ -163,14 +165,28 @@ def _largest_vc(case: Case, pre: Any, post: Any) -> float | None:
 
 
 # --------------------------------------------------------------------------- measured
-def _spiro_measured(sset: SpirometrySet | None, qset: Any) -> dict[str, float]:
-    """Measured values of a set: the quality layer's selection, the lab's reported values filling gaps."""
+def spirometry_measured(sset: SpirometrySet | None, qset: Any) -> dict[str, float]:
+    """Measured values of a set: the quality layer's selection, the lab's reported values filling gaps.
+
+    Parameters
+    ----------
+    sset : SpirometrySet or None
+        The pre- or post-bronchodilator set.
+    qset : SpirometryQuality or None
+        Its quality assessment; ``None`` when there is none (then the largest trial values are
+        taken, SPIRO-2019 §2.5).
+
+    Returns
+    -------
+    dict
+        Parameter -> value (L, L/s; ``FEV1/FVC`` as a fraction).
+    """
     out: dict[str, float] = {}
     if sset is None:
         return out
     selected = getattr(qset, "selected", None) or {}
     out.update({k: float(v) for k, v in selected.items() if _finite(v)})
-    if not selected and sset.trials:  # no quality layer: largest values (SPIRO-2019 §2.5)
+    if qset is None and sset.trials:  # no quality layer: largest values (SPIRO-2019 §2.5)
         for name in ("FEV1", "FVC", "FEV6", "FEV0_75", "FEV0_5"):
             vals = [t.value(name) for t in sset.trials if _finite(t.value(name))]
             if vals:
@@ -208,7 +224,7 @@ def _diffusion_measured(case: Case, qdiff: Any) -> dict[str, float]:
     if isinstance(reported_by_quality, dict):
         out.update({k: float(v) for k, v in reported_by_quality.items()
                     if k in ("DLCO", "VA", "KCO") and _finite(v)})
-    if not out and diff.trials and not reported_by_quality:
+    if qdiff is None and diff.trials:
         for name in ("DLCO", "VA", "KCO"):  # no quality layer: mean of the trials (DLCO-2017)
             vals = [getattr(t, name) for t in diff.trials if _finite(getattr(t, name))]
             if vals:
@@ -298,6 +314,25 @@ def entry(set_id: str | None, param: str, sex: str, age: float, height: float,
     return out
 
 
+def value_at_z(set_id: str, param: str, sex: str, age: float, height: float, z: float, *,
+               ancestry: str | None = None, unit: str = "SI") -> float:
+    """The measured value that sits at z-score ``z`` for this subject (LMS centile curve).
+
+    Useful to show what a limit means in the parameter's own unit, and to build test cases
+    around a threshold. ``y(z) = M·(1 + L·S·z)^(1/L)`` (Cole & Green 1992).
+
+    Raises
+    ------
+    EquationSetError
+        Unknown set or parameter.
+    """
+    from pftwork import lms as _lms
+    from pftwork.reference import lms as _lms_of
+
+    r = _lms_of(set_id, param, sex, age, height, ancestry=ancestry, unit=unit)
+    return float(np.ravel(_lms.value_at_z(z, r.L, r.M, r.S))[0])
+
+
 def _with_lab(item: dict[str, Any], lab: dict[str, float] | None) -> dict[str, Any]:
     """Attach the lab's own reference values; use them when pftwork has no equation."""
     if not lab:
@@ -347,7 +382,7 @@ def compute_values(case: Case, equations: dict[str, str], quality: QualityResult
     spiro = case.spirometry
     for phase, sset, qset in (("pre", spiro and spiro.pre, quality.pre),
                               ("post", spiro and spiro.post, quality.post)):
-        measured = _spiro_measured(sset, qset) if sset else {}
+        measured = spirometry_measured(sset, qset) if sset else {}
         for param in _ordered(measured, _SPIRO_ORDER):
             item = entry(equations["spirometry"], param, sex, age, height, measured[param],
                          ancestry=ancestry, notes=notes)

@@ -87,6 +87,8 @@ def volumes(case: Case, values: dict[str, Any], quality: dict[str, Any], validit
     else:
         status = _classify_tlc(tlc_z, obstruction, preserved, spiro_low, values, data, parts)
     _trapping(rvtlc_z, rv_z, data, parts)
+    if status == "normal" and data["air_trapping"]:
+        status = "air_trapping"
     evidence = {p: value(values, "volumes", p, "measured") for p in ("TLC", "RV", "RV/TLC", "FRC")}
     evidence.update({"TLC_z": tlc_z, "RV/TLC_z": rvtlc_z, "RV_z": rv_z,
                      "TLC_percent_predicted": value(values, "volumes", "TLC", "percent_predicted"),

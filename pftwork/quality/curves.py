@@ -1,9 +1,10 @@
 """Analysis of a raw forced manoeuvre (volume-time samples) into the spirometric quantities.
 
 Functions here are pure: a :class:`~pftwork.case_model.Curve` in, a frozen
-:class:`CurveAnalysis` out. Units: litres (BTPS), seconds, L/s. Flow is the time derivative of
-volume, taken with a Savitzky-Golay filter (polynomial order 2, window ~0.05 s, at least 5
-samples), and is positive on the expiratory limb and negative on the inspiratory limb.
+:class:`CurveAnalysis` out. Units: litres (BTPS), seconds, L/s. Volume is smoothed with a
+Savitzky-Golay filter (polynomial order 2, window ~0.05 s, at least 5 samples); flow is the
+time derivative of volume from a Savitzky-Golay filter of order 4 (window ~0.08 s, at least 7
+samples, which keeps the sharp peak of flow within a few per cent), and is positive on the expiratory limb and negative on the inspiratory limb.
 
 Definitions (SPIRO-2019 unless marked *our own*):
 
@@ -21,9 +22,10 @@ Definitions (SPIRO-2019 unless marked *our own*):
 * FIVC is the largest fall of volume after the end of expiration; PIF the largest inspiratory
   flow; FIF50 the inspiratory flow when half of the FIVC has been inspired.
 * *our own*: a flow interruption in the first second (cough or glottic-closure signature) is a
-  rebound of flow by more than 25 % of PEF after a dip, between PEF and time zero + 1 s, or
-  flow falling below 5 % of PEF in that window; an abrupt end is a mean flow above 0.20 L/s
-  over the last 0.1 s of expiration.
+  rebound of flow by more than 25 % of PEF after a dip, between PEF and time zero + 1 s (a
+  closure that never reopens looks like an abrupt end instead: small lungs may empty within a
+  second, so low flow alone is not flagged); an abrupt end is a mean flow above 0.20 L/s over
+  the last 0.1 s of expiration.
 """
 
 from __future__ import annotations
@@ -53,11 +55,11 @@ FET_LONG_S = 15.0
 MIN_RATE_HZ = 100.0
 #: Our own artefact thresholds, as fractions of PEF or in L/s.
 INTERRUPTION_REBOUND_FRACTION = 0.25
-INTERRUPTION_FLOOR_FRACTION = 0.05
 ABRUPT_END_FLOW_L_S = 0.20
 #: Longest plotted array (points).
 PLOT_POINTS = 400
 _SMOOTH_WINDOW_S = 0.05
+_FLOW_WINDOW_S = 0.08
 _END_WINDOW_S = 0.2
 _MAX_VOLUME_L = 15.0
 
@@ -113,6 +115,23 @@ class CurveAnalysis:
         return None if self.FIVC is None else self.FIVC - self.FVC
 
     @property
+    def bev_limit_l(self) -> float:
+        """Largest acceptable BEV, max(0.100 L, 5 % of FVC) (SPIRO-2019)."""
+        return max(0.100, 0.05 * self.FVC)
+
+    @property
+    def hesitant_start(self) -> bool:
+        """BEV above :attr:`bev_limit_l` (compared in whole mL): a hesitant or slow start."""
+        return _mL(self.BEV) > _mL(self.bev_limit_l)
+
+    @property
+    def fivc_excess_too_large(self) -> bool | None:
+        """FIVC - FVC > max(0.100 L, 5 % FVC) (SPIRO-2019 FIVC rule; whole mL); None without
+        an inspiratory limb."""
+        excess = self.fivc_excess_l
+        return None if excess is None else _mL(excess) > _mL(self.bev_limit_l)
+
+    @property
     def early_termination(self) -> bool:
         """Neither a plateau nor FET >= 15 s (SPIRO-2019 EOFE criteria 1 and 2 both unmet)."""
         return not self.plateau and self.FET < FET_LONG_S
@@ -137,6 +156,8 @@ class CurveAnalysis:
             else:
                 out[name] = value
         out["early_termination"] = self.early_termination
+        out["hesitant_start"] = self.hesitant_start
+        out["fivc_excess_too_large"] = self.fivc_excess_too_large
         return out
 
 
@@ -162,8 +183,8 @@ def analyse_curve(curve: Curve, field: str = "spirometry.pre.trials[0].curve") -
     """
     t, v, rate = _validated(curve, field)
     window = max(5, int(round(_SMOOTH_WINDOW_S * rate)) | 1)
-    vs = _smooth(v, window, 0, 1.0)
-    flow = _smooth(v, window, 1, 1.0 / rate)
+    vs = _smooth(v, window, 0, 1.0, 2)
+    flow = _smooth(v, max(7, int(round(_FLOW_WINDOW_S * rate)) | 1), 1, 1.0 / rate, 4)
     i_end = _end_of_expiration(vs, flow, rate)
     i_pef = int(np.argmax(flow[: i_end + 1]))
     pef = float(flow[i_pef])
@@ -194,9 +215,9 @@ def analyse_curve(curve: Curve, field: str = "spirometry.pre.trials[0].curve") -
     interrupted, when = _interruption(flow, t, i_pef, t0, t_end, pef)
     n_end = max(1, int(round(0.1 * rate)))
     end_flow = float(np.mean(flow[max(i_base, i_end - n_end): i_end + 1]))
-    exp_idx = _pick(i_base, i_end)
-    insp_idx = _pick(i_end, i_insp_end)
-    vt_idx = _pick(0, len(t) - 1)
+    exp_idx = _pick(vol / fvc, flow / pef, i_base, i_end, i_pef)
+    insp_idx = _pick(vol / fvc, flow / pef, i_end, i_insp_end)
+    vt_idx = _pick(t / (t[-1] - t[0]), vol / fvc, 0, len(t) - 1)
     return CurveAnalysis(
         rate_hz=rate, n_samples=len(t), time_zero_s=t0, BEV=bev, FET=t_end - t0,
         end_of_expiration_s=t_end, plateau=bool(_mL(last) < _mL(PLATEAU_VOLUME_L)),
@@ -258,34 +279,48 @@ def _validated(curve: Curve, field: str) -> tuple[np.ndarray, np.ndarray, float]
     return t, v, rate
 
 
-_COEFFS: dict[tuple[int, int], np.ndarray] = {}
+_FILTERS: dict[tuple[int, int, int], tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
 
 
-def _smooth(v: np.ndarray, window: int, deriv: int, step: float) -> np.ndarray:
-    """Savitzky-Golay value or first derivative (order 2); edges by least-squares fits."""
-    key = (window, deriv)
-    if key not in _COEFFS:
-        _COEFFS[key] = savgol_coeffs(window, 2, deriv=deriv, use="conv")
-    out = np.convolve(v, _COEFFS[key], mode="same")
+def _filter(window: int, deriv: int, order: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Savitzky-Golay kernel plus the matrices that evaluate least-squares polynomial fits to
+    the first and last ``window`` samples at the ``window // 2`` edge samples (cached)."""
+    key = (window, deriv, order)
+    if key not in _FILTERS:
+        half = window // 2
+        x = np.arange(window, dtype=float)
+        vander = np.vander(x, order + 1)
+        fit = np.linalg.pinv(vander)                       # polynomial coefficients from samples
+        if deriv:  # d/dx of each Vandermonde column x**p
+            at = np.column_stack([p * x ** (p - 1) if p else np.zeros(window)
+                                  for p in range(order, -1, -1)])
+        else:
+            at = vander
+        evaluate = at @ fit                                 # fitted value (or slope) at each x
+        _FILTERS[key] = (savgol_coeffs(window, order, deriv=deriv, use="conv"),
+                         evaluate[:half], evaluate[window - half:])
+    return _FILTERS[key]
+
+
+def _smooth(v: np.ndarray, window: int, deriv: int, step: float, order: int) -> np.ndarray:
+    """Savitzky-Golay value or first derivative; edges by least-squares polynomial fits."""
+    kernel, head, tail = _filter(window, deriv, order)
+    out = np.convolve(v, kernel, mode="same")
     half = window // 2
-    x = np.arange(window, dtype=float)
-    for lo, rows in ((0, slice(0, half)), (len(v) - window, slice(len(v) - half, len(v)))):
-        poly = np.polyfit(x, v[lo: lo + window], 2)
-        if deriv:
-            poly = np.polyder(poly)
-        out[rows] = np.polyval(poly, x[rows.start - lo: rows.stop - lo])
+    out[:half] = head @ v[:window]
+    out[len(v) - half:] = tail @ v[len(v) - window:]
     return out / step**deriv
 
 
 def _end_of_expiration(vs: np.ndarray, flow: np.ndarray, rate: float) -> int:
     """Index of the end of expiration (see the module docstring)."""
     box = max(1, int(round(_END_WINDOW_S * rate)))
-    avg = np.convolve(vs, np.full(box, 1.0 / box), mode="same")
-    avg[: box // 2] = -np.inf
-    avg[len(vs) - box // 2:] = -np.inf
-    i_pk = int(np.argmax(avg)) if len(vs) > 2 * box else int(np.argmax(vs))
-    i_pk = i_pk - box // 2 + int(np.argmax(vs[max(0, i_pk - box // 2): i_pk + box // 2 + 1]))
-    i_pk = max(i_pk, 0)
+    if len(vs) > 2 * box:
+        csum = np.concatenate(([0.0], np.cumsum(vs)))
+        start = int(np.argmax(csum[box:] - csum[:-box]))     # best window vs[start:start+box]
+        i_pk = start + int(np.argmax(vs[start: start + box]))
+    else:
+        i_pk = int(np.argmax(vs))
     below = vs[i_pk:] < vs[i_pk] - 0.010
     if not below.any():
         return i_pk
@@ -347,15 +382,19 @@ def _interruption(flow: np.ndarray, t: np.ndarray, i_pef: int, t0: float, t_end:
     k = int(np.argmax(rebound))
     if rebound[k] > INTERRUPTION_REBOUND_FRACTION * pef:
         return True, float(t[i_pef + k] - t0)
-    if t_end < t0 + 1.0 - 1e-9 or np.min(seg) < INTERRUPTION_FLOOR_FRACTION * pef:
-        k = int(np.argmin(seg))
-        return True, float(t[i_pef + k] - t0)
     return False, None
 
 
-def _pick(lo: int, hi: int) -> np.ndarray:
-    """At most PLOT_POINTS indices spread evenly over [lo, hi]."""
+def _pick(x: np.ndarray, y: np.ndarray, lo: int, hi: int, keep: int | None = None) -> np.ndarray:
+    """At most ~PLOT_POINTS indices in [lo, hi], evenly spaced along the arc length of the
+    (x, y) curve (both scaled to ~1), so fast parts such as the peak keep their detail.
+    """
     n = hi - lo + 1
     if n <= PLOT_POINTS:
         return np.arange(lo, hi + 1)
-    return np.unique(np.linspace(lo, hi, PLOT_POINTS).round().astype(int))
+    step = np.hypot(np.diff(x[lo: hi + 1]), np.diff(y[lo: hi + 1]))
+    arc = np.concatenate(([0.0], np.cumsum(step)))
+    idx = lo + np.searchsorted(arc, np.linspace(0.0, arc[-1], PLOT_POINTS - 2))
+    extra = [lo, hi] + ([keep] if keep is not None else [])
+    out = np.sort(np.concatenate((np.minimum(idx, hi), extra)))
+    return out[np.concatenate(([True], out[1:] != out[:-1]))]

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import json
-from functools import lru_cache
+from functools import cache
 from importlib import resources
 from typing import Any
 
@@ -32,7 +32,7 @@ def content_sha256(content: dict[str, Any]) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
-@lru_cache(maxsize=None)
+@cache
 def load_table(set_id: str) -> dict[str, Any]:
     """Parsed table of one equation set, its content checksum verified against its header.
 

@@ -344,6 +344,24 @@ class WorksheetRecord:
             self.marked_identifiers.remove(text.strip())
             self.updated_utc = utc_stamp(self._now)
 
+    def note_source(self, digest: str, label: str | None = None) -> None:
+        """Log that the case was (re)loaded from a source whose content has ``digest``.
+
+        Used by the worksheet to tell an edited case file from one already applied; not a
+        change of the review (sign-off is kept).
+        """
+        self.events.append({"time_utc": utc_stamp(self._now), "event": "case_loaded",
+                            "step": None, "by": None, "source_digest": digest,
+                            "source": label})
+
+    @property
+    def last_source_digest(self) -> str | None:
+        """Digest given to the latest :meth:`note_source` (``None`` if never called)."""
+        for event in reversed(self.events):
+            if event.get("event") == "case_loaded":
+                return event.get("source_digest")
+        return None
+
     def update_case(self, raw: Mapping[str, Any], equations: Any = None) -> list[str]:
         """Re-validate and re-interpret edited case data.
 
@@ -419,6 +437,13 @@ class WorksheetRecord:
                        events=d.get("events"), now=now)
         except (KeyError, TypeError, ValueError) as exc:
             raise WorksheetError(f"Worksheet record is incomplete or malformed: {exc!r}") from None
+
+    @staticmethod
+    def case_digest(raw: Mapping[str, Any]) -> str:
+        """SHA-256 (hex) of the canonical JSON of a case dictionary."""
+        text = json.dumps(raw, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                          default=str)
+        return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
     def digest(self) -> str:
         """SHA-256 of the canonical JSON of :meth:`to_dict` (hex)."""

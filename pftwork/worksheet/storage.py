@@ -32,6 +32,15 @@ AUTOSAVE_SUFFIX = ".pftwork.json"
 _UNSAFE = re.compile(r"[^A-Za-z0-9._-]+")
 
 
+def _current_umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+_UMASK = _current_umask()
+
+
 def autosave_path(case_id: str, folder: str | Path | None = None) -> Path:
     """Where the autosave of case ``case_id`` lives.
 
@@ -119,6 +128,8 @@ def load_record(path: str | Path) -> WorksheetRecord:
 def _write_temp(path: Path, text: str) -> str:
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        with contextlib.suppress(OSError):  # mkstemp creates 0600; keep the usual file mode
+            os.chmod(tmp, path.stat().st_mode & 0o777 if path.exists() else 0o666 & ~_UMASK)
         with os.fdopen(fd, "w", encoding="utf-8") as handle:
             handle.write(text)
             handle.flush()

@@ -1,0 +1,128 @@
+"""Step 7 (change over time).
+
+Sources: INTERP-2005 Table 12 year-to-year limits FEV1 >= 15 %, FVC >= 15 %, DLCO > 10 %
+(standards.md §3.6, VERIFIED [S16b]); INTERP-2022 conditional change score and FEV1Q (VERIFIED
+[S17a]; vectors §6 #3-#5); the least-squares slope CI is common practice, checked here against a
+hand computation with the textbook t quantile t(0.975, 2) = 4.303.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from pftwork.interpret import interpret
+from pftwork.interpret.change import ccs, fev1_slope, fev1q
+
+
+def _case(fev1_now: float, history: list[tuple[str, float]], age: float = 50.0,
+          dlco: tuple[float, float] | None = None, sex: str = "female") -> dict:
+    """Current FEV1 on 2026-06-01 and earlier (date, FEV1) tests; FVC fixed at 3.4 L."""
+    case = {"format": "pftwork-case/1",
+            "subject": {"id": "c-01", "sex": sex, "age_years": age, "height_cm": 165.0},
+            "test": {"date": "2026-06-01"},
+            "spirometry": {"pre": {"FEV1": fev1_now, "FVC": 3.4}},
+            "history": [{"test": {"date": d}, "spirometry": {"pre": {"FEV1": f, "FVC": 3.4}}}
+                        for d, f in history]}
+    if dlco:
+        case["diffusion"] = {"unit": "SI", "DLCO": dlco[1], "VA": 4.5}
+        case["history"][-1]["diffusion"] = {"unit": "SI", "DLCO": dlco[0], "VA": 4.5}
+    return case
+
+
+class TestPublishedScores:
+    """Tests for `ccs` and `fev1q`."""
+
+    def test_ccs_vector(self):
+        """Age 10, 1 year, z -1 -> -2: r 0.802, CCS -2.006, outside +/-1.96 (§6 #5)."""
+        score, r = ccs(-1.0, -2.0, 1.0, 10.0)
+
+        assert pytest.approx(0.802) == r
+        assert pytest.approx(-2.006, abs=5e-4) == score
+
+    @pytest.mark.parametrize(("fev1", "sex", "expected"), [(0.9, "female", 2.25),
+                                                           (1.0, "male", 2.00)])
+    def test_fev1q(self, fev1, sex, expected):
+        """FEV1Q = FEV1 / 0.4 L (women) or 0.5 L (men) (INTERP-2022; §6 #3, #4)."""
+        assert pytest.approx(expected) == fev1q(fev1, sex)
+
+
+class TestSlope:
+    """Tests for `fev1_slope` (least squares; common practice)."""
+
+    def test_hand_computed(self):
+        """Ages 0-3, FEV1 3.000/3.010/3.010/3.030 L: slope 9 mL/y, CI 9 +/- 4.303*sqrt(7)."""
+        slope, (lo, hi) = fev1_slope([0.0, 1.0, 2.0, 3.0], [3.000, 3.010, 3.010, 3.030])
+
+        assert pytest.approx(9.0) == slope
+        assert pytest.approx(9.0 - 4.3027 * 7 ** 0.5, abs=0.01) == lo
+        assert pytest.approx(9.0 + 4.3027 * 7 ** 0.5, abs=0.01) == hi
+
+    def test_slope_in_chain(self):
+        """Three tests a year apart losing 100 mL/year give a -100 mL/year slope."""
+        step = interpret(_case(2.60, [("2024-06-01", 2.80), ("2025-06-01", 2.70)])).step("change")
+
+        assert pytest.approx(-100.0, abs=1.0) == step.data["slope_ml_per_year"]
+        assert step.data["n_tests"] == 3
+
+    def test_no_slope_with_two_tests(self):
+        """Two tests give a change but no slope."""
+        step = interpret(_case(2.60, [("2025-06-01", 2.70)])).step("change")
+
+        assert step.data["slope_ml_per_year"] is None
+
+
+class TestThresholds2005:
+    """INTERP-2005 Table 12 year-to-year limits."""
+
+    @pytest.mark.parametrize(("before", "now", "significant"), [
+        (2.00, 1.70, True),    # -15.0 %: >= 15 % is significant
+        (2.00, 1.71, False),   # -14.5 %
+        (2.00, 2.30, True),    # +15 % increase is also a change
+        (2.00, 1.90, False),
+    ])
+    def test_fev1(self, before, now, significant):
+        """FEV1 change of 15 % or more over a year is significant."""
+        step = interpret(_case(now, [("2025-06-01", before)])).step("change")
+
+        assert significant == step.data["significant"]["FEV1"]
+        assert pytest.approx((now - before) / before * 100, abs=0.01) == \
+            step.data["changes"]["FEV1"]["percent"]
+
+    @pytest.mark.parametrize(("before", "now", "significant"), [
+        (7.00, 6.30, False),   # -10.0 %: DLCO needs > 10 %
+        (7.00, 6.29, True),    # -10.1 %
+    ])
+    def test_dlco(self, before, now, significant):
+        """DLCO change must exceed 10 % over a year."""
+        step = interpret(_case(2.5, [("2025-06-01", 2.5)], dlco=(before, now))).step("change")
+
+        assert significant == step.data["significant"]["DLCO"]
+
+    def test_decline_named(self):
+        """A significant fall is called a decline in the summary."""
+        result = interpret(_case(1.60, [("2025-06-01", 2.00)]))
+
+        assert (result.step("change").status, result.summary["change"]) == ("decline", "decline")
+
+
+class TestAgeGroups:
+    """Children get the CCS, adults FEV1Q (INTERP-2022)."""
+
+    def test_child_ccs(self):
+        """A 12-year-old gets a conditional change score, no FEV1Q."""
+        step = interpret(_case(2.2, [("2025-06-01", 2.4)], age=12.0)).step("change")
+
+        assert step.data["ccs"] is not None and step.data["fev1q"] is None
+        assert pytest.approx(0.642 - 0.04 * 1.0 + 0.02 * 11.0, abs=0.002) == step.data["ccs"]["r"]
+
+    def test_adult_fev1q(self):
+        """A 50-year-old woman gets FEV1Q = FEV1/0.4."""
+        step = interpret(_case(1.0, [("2025-06-01", 1.1)])).step("change")
+
+        assert pytest.approx(2.5) == step.data["fev1q"]
+
+    def test_no_history(self):
+        """Without earlier tests the step is not assessed."""
+        step = interpret(_case(2.5, [])).step("change")
+
+        assert (step.status, step.data["slope_ml_per_year"]) == ("not_assessed", None)

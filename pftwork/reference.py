@@ -34,6 +34,13 @@ Conventions
   children aged 3-7 y only: elsewhere their values are nan and ``extrapolated`` is True.
 * GLI-2017 is published for 5-85 y; its table runs to 90 y, so 85-90 y uses real table rows
   but is still flagged.
+
+Performance
+-----------
+The age grid is uniform (0.25 y), so the spline look-up is index arithmetic
+(``row = floor((age - a0) / 0.25)``), not a search. Work is done in blocks of :data:`BLOCK`
+subjects with reused block-sized temporaries, so a call allocates little beyond its outputs
+(about 52 MB for a million subjects). See ``benchmarks/README.md`` for measured rates.
 """
 
 from __future__ import annotations
@@ -226,6 +233,7 @@ class _Model:
     table: dict[str, FloatArray]
     slope: dict[str, FloatArray]
     has_slope: dict[str, bool]
+    uniform: dict[str, float | None]
     m_height_log: bool
     m_age_log: bool
     s_age_log: bool
@@ -245,9 +253,9 @@ class _Model:
         return bool(np.any(np.abs(values) < 1e-3))
 
 
-def _uniform(values: FloatArray) -> FloatArray | np.float64:
-    """A scalar when every group shares the value (saves a per-row look-up)."""
-    return values[0] if np.all(values == values[0]) else values
+def _uniform_values(arrays: dict[str, FloatArray]) -> dict[str, float | None]:
+    """The value shared by every group, per coefficient (None where groups differ)."""
+    return {k: float(v[0]) if np.all(v == v[0]) else None for k, v in arrays.items()}
 
 
 @cache
@@ -294,6 +302,9 @@ def _model(set_id: str, parameter: str, unit: str | None) -> _Model:
         table=table,
         slope=slope,
         has_slope={k: bool(np.any(v != 0.0)) for k, v in slope.items()},
+        uniform=_uniform_values({"m_h": coefficient("m", "height"), "m_a": coefficient("m", "age"),
+                                 "s_a": coefficient("s", "age"), "l_a": coefficient("l", "log_age"),
+                                 "M": intercepts["M"], "S": intercepts["S"], "L": intercepts["L"]}),
         m_height_log=first["m"]["height_form"] == "log",
         m_age_log=first["m"]["age_form"] == "log",
         s_age_log=first["s"]["age_form"] == "log",
@@ -386,7 +397,7 @@ def _sex_codes(sex: Any) -> npt.NDArray[np.intp] | np.intp:
     arr = np.asarray(sex)
     expected = "'male' or 'female' (or 1 = male, 0 = female)"
     if arr.dtype.kind in "biu":
-        codes = arr.astype(np.intp)
+        codes = arr.astype(np.intp, copy=False)
         if codes.size and (codes.min() < 0 or codes.max() > 1):
             bad = arr.flat[int(np.argmax((codes < 0) | (codes > 1)))]
             raise CaseError("subject.sex", bad, expected)
@@ -457,7 +468,9 @@ def _ancestry_codes(eq: EquationSet, ancestry: Any) -> npt.NDArray[np.intp] | in
     return codes
 
 
-def _unit_key(eq: EquationSet, parameter: str, unit: str) -> str | None:
+def _unit_key(eq: EquationSet, parameter: str, unit: str | None) -> str | None:
+    if unit is None:
+        unit = "SI"
     if not isinstance(unit, str) or unit.lower() not in ("si", "traditional"):
         raise CaseError("diffusion.unit", unit, "'SI' or 'traditional'")
     canonical = "SI" if unit.lower() == "si" else "traditional"
@@ -469,7 +482,7 @@ def _unit_key(eq: EquationSet, parameter: str, unit: str) -> str | None:
 # --------------------------------------------------------------------------- core
 
 
-BLOCK = 1 << 15
+BLOCK = 1 << 16
 """Subjects per block: the work is done block by block so temporaries stay in cache."""
 
 
@@ -537,30 +550,28 @@ def _block(model: _Model, sex: Any, anc: Any, age: FloatArray, height: FloatArra
         if model.count:
             frac = scratch.get("frac", n)
             rows = scratch.get("rows", n, np.intp)
-            _grid_position(model, g, age, frac, rows, buf, scratch.get("buf2", n), has_nan)
+            _grid_position(model, g, age, frac, rows, buf, has_nan)
 
         # M = exp(m0 + m_h * H(height) + m_a * A(age) + Mspline)
         if model.m_height_log:
             np.log(height, out=m)
         else:
             np.copyto(m, height)
-        _scale_by(m, model.m_h, g, buf)
-        _add_term(m, model.m_a, g, ln_age if model.m_age_log else age, buf)
+        _scale_by(m, model, "m_h", g, buf)
+        _add_term(m, model, "m_a", g, ln_age if model.m_age_log else age, buf)
         _add_part(model, "M", m, rows, frac, buf)
         np.exp(m, out=m)
         if model.scale != 1.0:
             m *= model.scale
 
         # S = exp(s0 + s_a * A(age) + Sspline)
-        s.fill(0.0)
-        _add_term(s, model.s_a, g, ln_age if model.s_age_log else age, buf)
-        _add_part(model, "S", s, rows, frac, buf)
+        _set_part(model, "S", s, rows, frac, buf)
+        _add_term(s, model, "s_a", g, ln_age if model.s_age_log else age, buf)
         np.exp(s, out=s)
 
         # L = l0 + l_a * ln(age) + Lspline
-        L.fill(0.0)
-        _add_term(L, model.l_a, g, ln_age, buf)
-        _add_part(model, "L", L, rows, frac, buf)
+        _set_part(model, "L", L, rows, frac, buf)
+        _add_term(L, model, "l_a", g, ln_age, buf)
 
     if model.restricted_ancestry is not None:
         with np.errstate(invalid="ignore"):
@@ -574,9 +585,20 @@ def _block(model: _Model, sex: Any, anc: Any, age: FloatArray, height: FloatArra
         _limits_and_z(model, L, m, s, y, out, scratch)
 
 
-def _scale_by(acc: FloatArray, coefficient: FloatArray, g: Any, buf: FloatArray) -> None:
+def _coefficient(model: _Model, key: str, g: Any) -> Any:
+    """Scalar coefficient when every subject of the block shares it, else the per-group array."""
+    shared = model.uniform[key]
+    if shared is not None:
+        return shared
+    values = {"m_h": model.m_h, "m_a": model.m_a, "s_a": model.s_a, "l_a": model.l_a}.get(key)
+    if values is None:
+        values = model.intercept[key]
+    return values[g] if np.ndim(g) == 0 else values
+
+
+def _scale_by(acc: FloatArray, model: _Model, key: str, g: Any, buf: FloatArray) -> None:
     """``acc *= coefficient[g]``."""
-    c = _group_value(coefficient, g)
+    c = _coefficient(model, key, g)
     if np.ndim(c) == 0:
         acc *= c
     else:
@@ -584,10 +606,10 @@ def _scale_by(acc: FloatArray, coefficient: FloatArray, g: Any, buf: FloatArray)
         acc *= buf
 
 
-def _add_term(acc: FloatArray, coefficient: FloatArray, g: Any, x: FloatArray,
+def _add_term(acc: FloatArray, model: _Model, key: str, g: Any, x: FloatArray,
               buf: FloatArray) -> None:
     """``acc += coefficient[g] * x`` without new arrays."""
-    c = _group_value(coefficient, g)
+    c = _coefficient(model, key, g)
     if np.ndim(c) == 0:
         if c != 0.0:
             np.multiply(x, c, out=buf)
@@ -598,18 +620,28 @@ def _add_term(acc: FloatArray, coefficient: FloatArray, g: Any, x: FloatArray,
         acc += buf
 
 
-def _group_value(values: FloatArray, g: Any) -> Any:
-    """The per-group coefficients, as a scalar when all subjects share one value."""
-    if np.all(values == values[0]):
-        return values[0]
-    return values[g] if np.ndim(g) == 0 else values
+def _set_part(model: _Model, part: str, acc: FloatArray, rows: Any, frac: FloatArray | None,
+              buf: FloatArray) -> None:
+    """``acc = intercept + spline`` of a part (M, S or L), interpolated between grid rows."""
+    if frac is None:  # no spline table: the per-group intercept only (rows is the group)
+        c = _coefficient(model, part, rows)
+        if np.ndim(c) == 0:
+            acc.fill(c)
+        else:
+            np.take(c, rows, out=acc, mode="clip")
+        return
+    np.take(model.table[part], rows, out=acc, mode="clip")
+    if model.has_slope[part]:
+        np.take(model.slope[part], rows, out=buf, mode="clip")
+        buf *= frac
+        acc += buf
 
 
 def _add_part(model: _Model, part: str, acc: FloatArray, rows: Any, frac: FloatArray | None,
               buf: FloatArray) -> None:
     """``acc += intercept + spline`` of a part (M, S or L), interpolated between grid rows."""
-    if frac is None:  # no spline table: the per-group intercept only (rows is the group)
-        c = _group_value(model.intercept[part], rows)
+    if frac is None:
+        c = _coefficient(model, part, rows)
         if np.ndim(c) == 0:
             acc += c
         else:
@@ -625,8 +657,7 @@ def _add_part(model: _Model, part: str, acc: FloatArray, rows: Any, frac: FloatA
 
 
 def _grid_position(model: _Model, g: Any, age: FloatArray, frac: FloatArray,
-                   rows: npt.NDArray[np.intp], buf: FloatArray, buf2: FloatArray,
-                   has_nan: bool) -> None:
+                   rows: npt.NDArray[np.intp], buf: FloatArray, has_nan: bool) -> None:
     """Table row of each subject's lower grid age (``rows``) and the next row's weight (``frac``).
 
     Outside the grid the edge row is used (index and weight clipped), so the spline terms stay
@@ -637,15 +668,20 @@ def _grid_position(model: _Model, g: Any, age: FloatArray, frac: FloatArray,
     if has_nan:
         np.copyto(frac, 0.0, where=np.isnan(frac))
     np.floor(frac, out=buf)
-    np.clip(buf, 0, model.count - 2, out=buf)
+    last = model.count - 2
+    inside = not has_nan and buf.min() >= 0 and buf.max() <= last and frac.max() <= last + 1
+    if not inside:
+        np.clip(buf, 0, last, out=buf)
     frac -= buf
-    np.clip(frac, 0.0, 1.0, out=frac)
+    if not inside:
+        np.clip(frac, 0.0, 1.0, out=frac)
     if np.ndim(g):
-        np.multiply(g, float(model.count), out=buf2)
-        buf += buf2
-    elif g:
-        buf += float(g * model.count)
-    np.copyto(rows, buf, casting="unsafe")
+        np.multiply(g, model.count, out=rows)
+        np.add(rows, buf, out=rows, casting="unsafe")
+    else:
+        np.copyto(rows, buf, casting="unsafe")
+        if g:
+            rows += int(g) * model.count
 
 
 def _limits_and_z(model: _Model, L: FloatArray, M: FloatArray, S: FloatArray, y: Any,
@@ -790,8 +826,9 @@ def reference_values(set_id: str, parameter: str, sex: Any, age: Any, height: An
         Standing height in cm.
     measured : array_like, optional
         Measured values in the parameter's unit; ``None`` or nan gives nan z/%/percentile.
-    ancestry : array_like of str, optional
-        Required by ``gli-2012``; ignored by the other sets.
+    ancestry : array_like of str or int, optional
+        Required by ``gli-2012`` (names, or integer codes indexing :data:`ANCESTRIES`);
+        ignored by the other sets.
     unit : {"SI", "traditional"}
         Unit of GLI-2017 DLCO/KCO (each from its own published table); ignored elsewhere.
 

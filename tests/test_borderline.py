@@ -8,6 +8,8 @@ repeatability coefficient 2.77 × sd (our own reading, documented in the module)
 from __future__ import annotations
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from pftwork.interpret import interpret
 from pftwork.interpret.borderline import BORDERLINE_P, DEFAULT_SD, flip_probability
@@ -79,3 +81,22 @@ class TestInChain:
         fev1 = [b for b in interpret(case_at(-1.66)).borderline if b["decision"] == "fev1_low"][0]
 
         assert "default" in fev1["sd_source"]
+
+
+class TestProperties:
+    """Invariants of the flip model (our own model: properties, not published values)."""
+
+    @given(st.floats(-10, 10), st.floats(-10, 10), st.floats(0.001, 5))
+    def test_bounded_and_symmetric(self, m, limit, sd):
+        """0 <= p <= 0.5 and mirroring the value around the limit gives the same p."""
+        p = flip_probability(m, limit, sd)
+
+        assert 0.0 <= p <= 0.5
+        assert flip_probability(2 * limit - m, limit, sd) == pytest.approx(p, abs=1e-12)
+
+    @given(st.floats(0.0, 5.0), st.floats(0.0, 5.0), st.floats(0.01, 2))
+    def test_decreases_with_distance(self, d1, d2, sd):
+        """Further from the limit, less likely to flip."""
+        near, far = sorted([d1, d2])
+
+        assert flip_probability(far, 0.0, sd) <= flip_probability(near, 0.0, sd) + 1e-15

@@ -42,6 +42,15 @@ def page_url(tmp_path):
         yield url, autosave
 
 
+def _full_height_screenshot(page, path: Path) -> None:
+    """Screenshot of the whole page (Voila scrolls inside a container, so grow the viewport)."""
+    height = page.evaluate("Math.max(...Array.from(document.querySelectorAll('*'), "
+                           "e => e.scrollHeight))")
+    page.set_viewport_size({"width": 1280, "height": min(int(height) + 40, 16000)})
+    page.wait_for_timeout(500)  # plotly re-lays out on resize
+    page.screenshot(path=str(path), full_page=True)
+
+
 def test_review_amend_and_sign_off_in_browser(page_url, tmp_path):
     """A reviewer walks the whole demo case in chromium and signs it off."""
     from playwright.sync_api import expect, sync_playwright
@@ -87,7 +96,7 @@ def test_review_amend_and_sign_off_in_browser(page_url, tmp_path):
             banner = page.locator(".pft-signoff-banner")
             expect(banner).to_contain_text(f"Signed off by {REVIEWER}", timeout=STEP_TIMEOUT_MS)
             expect(page.locator(".pft-cautions")).to_be_visible()
-            page.screenshot(path=str(shot), full_page=True)
+            _full_height_screenshot(page, shot)
         finally:
             browser.close()
 

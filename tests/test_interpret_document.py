@@ -3,17 +3,16 @@
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import pytest
 
+import pftwork
 from pftwork.errors import EquationSetError
 from pftwork.interpret import STEP_IDS, Finding, Interpretation, interpret
 from pftwork.interpret.document import FORMAT
 from pftwork.interpret.render import render_text
 
-DATA = Path(__file__).resolve().parent.parent / "data"
-DEMOS = sorted(DATA.glob("*.json"))
+DEMOS = pftwork.demo_cases()
 CASE = {
     "format": "pftwork-case/1",
     "subject": {"id": "doc-01", "sex": "female", "age_years": 61.4, "height_cm": 159.0},

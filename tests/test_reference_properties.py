@@ -299,3 +299,33 @@ class TestTables:
         script = Path(__file__).resolve().parent.parent / "scripts" / "build_tables.py"
         done = subprocess.run([sys.executable, str(script), "--check"], capture_output=True, text=True)
         assert done.returncode == 0, done.stdout + done.stderr
+
+
+class TestBlocks:
+    """Large calls are evaluated block by block; the blocking must not change any value."""
+
+    @pytest.mark.parametrize(("set_id", "parameter", "unit"),
+                             [("gli-2012", "FEV1/FVC", "SI"), ("gli-2012", "FEV0_75", "SI"),
+                              ("gli-2017", "KCO", "traditional"), ("gli-2021", "RV/TLC", "SI")])
+    def test_small_blocks_give_same_values(self, monkeypatch, set_id, parameter, unit):
+        """Blocks of 7 subjects (mixed sexes, ancestries, nan and out-of-range rows) = one block."""
+        import pftwork.reference as reference
+
+        rng = np.random.default_rng(11)
+        n = 100
+        child_only = parameter == "FEV0_75"  # european 3-7 y only: test around that window
+        age = rng.uniform(2.0, 8.0, n) if child_only else rng.uniform(1.0, 99.0, n)
+        age[[3, 50]] = np.nan
+        height = rng.uniform(70.0, 240.0, n)
+        sex = rng.integers(0, 2, n)
+        ancestry = rng.integers(0, 2 if child_only else 5, n) if set_id == "gli-2012" else None
+        y = rng.uniform(0.2, 5.0, n)
+        one = reference_values(set_id, parameter, sex, age, height, measured=y, ancestry=ancestry, unit=unit)
+        monkeypatch.setattr(reference, "BLOCK", 7)
+        many = reference_values(set_id, parameter, sex, age, height, measured=y, ancestry=ancestry, unit=unit)
+        for name in ("predicted", "lln", "uln", "z", "percent_predicted", "percentile", "extrapolated"):
+            np.testing.assert_array_equal(getattr(one, name), getattr(many, name), err_msg=name)
+        r_one = lms(set_id, parameter, sex, age, height, ancestry=ancestry, unit=unit)
+        r_many = reference.lms(set_id, parameter, sex, age, height, ancestry=ancestry, unit=unit)
+        np.testing.assert_array_equal(r_one.M, r_many.M)
+        assert np.isfinite(one.predicted).sum() > 10

@@ -8,6 +8,8 @@ Measured values are built from the reference engine at a chosen z (value_at_z).
 from __future__ import annotations
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from pftwork.case import load_case
 from pftwork.interpret import interpret
@@ -195,3 +197,15 @@ class TestUpperAirwayFromCurves:
 
         assert step.data["upper_airway_flag"] is False
         assert step.evidence["upper_airway"]["fev1_pef_ml_per_l_min"] < 10.0
+
+
+class TestSeverityProperties:
+    """Severity never improves as z falls (INTERP-2022 bands are ordered)."""
+
+    @given(st.floats(-12, 3), st.floats(-12, 3))
+    def test_monotone(self, z1, z2):
+        """A lower z never gets a milder band."""
+        order = [None, "mild", "moderate", "severe"]
+        lo, hi = sorted([z1, z2])
+
+        assert order.index(severity(lo)) >= order.index(severity(hi))

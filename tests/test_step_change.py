@@ -10,8 +10,9 @@ from __future__ import annotations
 
 import pytest
 
+from pftwork.case import load_case
 from pftwork.interpret import interpret
-from pftwork.interpret.change import ccs, fev1_slope, fev1q
+from pftwork.interpret.change import ccs, fev1_slope, fev1q, history_values
 
 
 def _case(fev1_now: float, history: list[tuple[str, float]], age: float = 50.0,
@@ -126,3 +127,18 @@ class TestAgeGroups:
         step = interpret(_case(2.5, [])).step("change")
 
         assert (step.status, step.data["slope_ml_per_year"]) == ("not_assessed", None)
+
+
+class TestHistoryValues:
+    """Tests for `history_values` (used by the worksheet's trend plot)."""
+
+    def test_prior_entry(self):
+        """An earlier test is evaluated at its own age with the current equations."""
+        case = load_case(_case(2.5, [("2024-06-01", 2.7)]))
+        vals = history_values(case, case.history[0], {"spirometry": "gli-global-2022",
+                                                     "volumes": "gli-2021",
+                                                     "diffusion": "gli-2017"}, "female")
+
+        assert vals["FEV1"]["measured"] == 2.7
+        assert vals["FEV1"]["age_years"] == pytest.approx(48.0, abs=0.01)
+        assert vals["FEV1"]["z"] is not None

@@ -155,6 +155,7 @@ class TestReadingTable:
         (-2.5, -2.5, 0.0, "units_lost"),   # low VA, normal KCO
         (-2.5, -3.0, 2.0, "low_volume"),   # low VA, high KCO
         (2.0, 0.0, 2.0, "high"),           # raised DLCO
+        (-1.0, -2.5, 2.0, "low_volume"),   # DLCO in range, low VA, high KCO (our extension)
         (0.0, 0.0, 0.0, None),             # normal: no reading
     ])
     def test_reading(self, dlco, va, kco, reading):

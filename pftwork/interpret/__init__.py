@@ -12,25 +12,26 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import pftwork.interpret.airflow as _airflow
+import pftwork.interpret.borderline as _borderline
+import pftwork.interpret.bronchodilator as _bronchodilator
+import pftwork.interpret.change as _change
+import pftwork.interpret.gas_transfer as _gas_transfer
+import pftwork.interpret.resistance as _resistance
+import pftwork.interpret.sensitivity as _sensitivity
+import pftwork.interpret.synthesis as _synthesis
+import pftwork.interpret.validity as _validity
+import pftwork.interpret.volumes as _volumes
 from pftwork.case_model import Case
-from pftwork.interpret.airflow import airflow
-from pftwork.interpret.borderline import borderline
-from pftwork.interpret.bronchodilator import bronchodilator
 from pftwork.interpret.cautions import CAUTIONS
-from pftwork.interpret.change import change
 from pftwork.interpret.finding import STEP_IDS, Finding, json_safe
-from pftwork.interpret.gas_transfer import gas_transfer
-from pftwork.interpret.resistance import resistance
-from pftwork.interpret.sensitivity import sensitivity
-from pftwork.interpret.synthesis import SUMMARY_KEYS, synthesis
-from pftwork.interpret.validity import validity
+from pftwork.interpret.synthesis import SUMMARY_KEYS
 from pftwork.interpret.values import (
     QualityResult,
     assess_quality,
     compute_values,
     resolve_equations,
 )
-from pftwork.interpret.volumes import volumes
 
 __all__ = ["STEP_IDS", "SUMMARY_KEYS", "Finding", "Interpretation", "interpret", "run_steps"]
 
@@ -95,14 +96,15 @@ def run_steps(case: Case, values: dict[str, Any], quality: dict[str, Any],
               curve_indices: dict[str, Any] | None = None) -> dict[str, Finding]:
     """Run the eight steps for one sex; returns step id -> Finding (in chain order)."""
     f: dict[str, Finding] = {}
-    f["validity"] = validity(case, values, quality)
-    f["airflow"] = airflow(case, values, quality, f["validity"], curve_indices)
-    f["volumes"] = volumes(case, values, quality, f["validity"], f["airflow"])
-    f["gas_transfer"] = gas_transfer(case, values, quality, f["validity"])
-    f["bronchodilator"] = bronchodilator(case, values, quality, f["validity"])
-    f["resistance"] = resistance(case, values, quality, f["validity"])
-    f["change"] = change(case, values, quality, f["validity"], equations, sex)
-    f["synthesis"] = synthesis(case, values, quality, f)
+    f["validity"] = _validity.validity(case, values, quality)
+    ok = f["validity"]
+    f["airflow"] = _airflow.airflow(case, values, quality, ok, curve_indices)
+    f["volumes"] = _volumes.volumes(case, values, quality, ok, f["airflow"])
+    f["gas_transfer"] = _gas_transfer.gas_transfer(case, values, quality, ok)
+    f["bronchodilator"] = _bronchodilator.bronchodilator(case, values, quality, ok)
+    f["resistance"] = _resistance.resistance(case, values, quality, ok)
+    f["change"] = _change.change(case, values, quality, ok, equations, sex)
+    f["synthesis"] = _synthesis.synthesis(case, values, quality, f)
     return f
 
 
@@ -135,6 +137,14 @@ def interpret(case: Case | str | Path | dict[str, Any], equations: Any = None) -
         Invalid case input.
     EquationSetError
         Unknown equation set.
+
+    Notes
+    -----
+    With ``subject.sex == "both"`` the chain runs under male and under female equations; value
+    entries then hold ``range`` ([low, high] per field) and ``by_sex`` instead of single limits,
+    and any step output that differs between the sexes is ``None`` and listed in
+    ``data["sex_dependent"]`` (the summary's ``sex_dependent``), with both readings in the
+    conclusion.
     """
     case = _load(case)
     eqs = resolve_equations(case, equations)
@@ -151,7 +161,7 @@ def interpret(case: Case | str | Path | dict[str, Any], equations: Any = None) -
         findings = {k: _merge_findings({s: chains[s][k] for s in sexes}) for k in STEP_IDS}
     decisions: list[dict[str, Any]] = []
     for s in sexes:
-        for d in borderline(case, per_sex[s], chains[s]):
+        for d in _borderline.borderline(case, per_sex[s], chains[s]):
             decisions.append(d | ({"sex": s} if len(sexes) > 1 else {}))
     summary = {k: v for k, v in findings["synthesis"].data.items() if k != "by_sex"}
     summary["borderline"] = [_compact(d) for d in decisions if d["borderline"]]
@@ -162,7 +172,7 @@ def interpret(case: Case | str | Path | dict[str, Any], equations: Any = None) -
         vals = compute_values(case, eq, q, sex)
         return run_steps(case, vals, q.block, eq, sex, curve_idx)["synthesis"].data, vals
 
-    sens = sensitivity(eqs, case.subject.sex, case.subject.ancestry, _variant)
+    sens = _sensitivity.sensitivity(eqs, case.subject.sex, case.subject.ancestry, _variant)
     return Interpretation(case=case, equations=eqs, values=json_safe(values),
                           quality=json_safe(q.block), steps=tuple(findings[k] for k in STEP_IDS),
                           summary=json_safe(summary), borderline=tuple(json_safe(decisions)),

@@ -75,7 +75,7 @@ def _sd(param: str, measured: float, case: Any) -> tuple[float, str]:
             return sd, f"session trials (sd of {param} over the pre-bronchodilator trials)"
     if param in ("DLCO", "VA", "KCO") and case.diffusion and case.diffusion.trials:
         sd = _trial_sd(case.diffusion.trials, param)
-        if sd:
+        if sd:  # trials are in SI; rescale to the unit of ``measured`` (mean-preserving)
             scale = measured / float(np.mean([getattr(t, param) for t in case.diffusion.trials
                                               if getattr(t, param) is not None]))
             return sd * scale, f"session trials (sd of {param} over the trials)"

@@ -18,7 +18,7 @@ from pftwork.interpret.gas_transfer import SI_TO_TRADITIONAL
 from pftwork.interpret.values import DEFAULT_EQUATIONS, entry, spirometry_measured
 
 __all__ = ["CHILD_AGE_LIMIT", "FEV1Q_DIVISOR", "THRESHOLDS_2005", "ccs", "change", "fev1q",
-           "fev1_slope"]
+           "fev1_slope", "history_values"]
 
 TITLE = "Change over time"
 SOURCE = ("INTERP-2005 (Pellegrino et al., ERJ 2005) Table 12: significant year-to-year change "
@@ -80,8 +80,13 @@ def _prior_age(case: Case, h: HistoryEntry) -> float | None:
     return None
 
 
-def _prior_values(case: Case, h: HistoryEntry, equations: dict[str, str], sex: str
-                  ) -> dict[str, dict[str, Any]]:
+def history_values(case: Case, h: HistoryEntry, equations: dict[str, str], sex: str
+                   ) -> dict[str, dict[str, Any]]:
+    """Values entries (FEV1, FVC pre; DLCO in the case's unit) of one earlier test.
+
+    The earlier test's own age and height are used with the current equations; each entry
+    also carries ``age_years``. Empty when the age of the earlier test is unknown.
+    """
     age = _prior_age(case, h)
     height = h.height_cm or case.subject.height_cm
     if age is None:
@@ -153,7 +158,7 @@ def change(case: Case, values: dict[str, Any], quality: dict[str, Any], validity
                             "step.", _KEYS, status="stopped", rule=RULE, source=SOURCE)
     equations = equations or dict(DEFAULT_EQUATIONS)
     sex = sex or case.subject.sex
-    priors = [(h, _prior_values(case, h, equations, sex)) for h in case.history]
+    priors = [(h, history_values(case, h, equations, sex)) for h in case.history]
     priors = [(h, v) for h, v in priors if v]
     if not priors:
         return not_assessed("change", TITLE, "No earlier test to compare with.", _KEYS,

@@ -119,7 +119,7 @@ _READINGS = {
                 "lung volume, or anaemia.",
     "units_lost": "Low DLCO with low VA and a low or normal KCO: loss of alveolar-capillary "
                   "units, as in interstitial lung disease or emphysema with loss of lung volume.",
-    "low_volume": "Low DLCO with low VA and high KCO: a low-volume state — local loss of lung "
+    "low_volume": "Low VA with a high KCO: a low-volume state — local loss of lung "
                   "(e.g. resection) or incomplete expansion (submaximal inspiration, chest-wall "
                   "or neuromuscular restriction).",
     "unclassified": "Low DLCO with a VA/KCO combination outside the usual reading table.",
@@ -127,8 +127,12 @@ _READINGS = {
 
 
 def _reading(dlco: str | None, va: str | None, kco: str | None) -> str | None:
+    """Row of the INTERP-2022 reading table; a low VA with a high KCO is read as a low-volume
+    state even when DLCO stays within limits (our own extension of the table)."""
     if dlco == "high":
         return "high"
+    if va == "low" and kco == "high":
+        return "low_volume"
     if dlco != "low" or va is None or kco is None:
         return None
     if va == "normal" and kco == "low":
@@ -181,7 +185,7 @@ def gas_transfer(case: Case, values: dict[str, Any], quality: dict[str, Any],
     data["reading"] = _reading(data["dlco"], data["va"], data["kco"])
     unit = value(values, "diffusion", "DLCO", "unit")
     dlco = value(values, "diffusion", "DLCO", "measured")
-    tag = " (Hb/COHb/altitude-adjusted predicted)" if adjusted else ""
+    tag = _adjust_tag(values) if adjusted else ""
     parts = [f"DLCO {dlco:.2f} {unit} is {data['dlco']}{tag} (z {dlco_z:.2f})"
              + (f", {data['dlco_severity']} reduction." if data["dlco_severity"] else ".")]
     for name, lvl, z in (("KCO", data["kco"], kco_z), ("VA", data["va"], va_z)):
@@ -194,8 +198,8 @@ def gas_transfer(case: Case, values: dict[str, Any], quality: dict[str, Any],
     data["va_tlc"] = va / tlc if va and tlc else None
     data["maldistribution"] = None if data["va_tlc"] is None else data["va_tlc"] < VA_TLC_LIMIT
     if data["maldistribution"]:
-        parts.append(f"VA/TLC {data['va_tlc']:.2f} < 0.8: maldistribution of ventilation; KCO "
-                     "may be falsely normal.")
+        parts.append(f"VA/TLC {data['va_tlc']:.2f} < 0.8: maldistribution of ventilation"
+                     + ("; KCO may be falsely normal." if data["kco"] == "normal" else "."))
     caveats = _caveats(case, data)
     evidence = {"DLCO": dlco, "KCO": value(values, "diffusion", "KCO", "measured"), "VA": va,
                 "TLC": tlc, "unit": unit, "DLCO_z": dlco_z, "KCO_z": kco_z, "VA_z": va_z,
@@ -207,6 +211,20 @@ def gas_transfer(case: Case, values: dict[str, Any], quality: dict[str, Any],
                                  "severe": [None, -4.0]}}
     return Finding("gas_transfer", TITLE, " ".join(parts), f"dlco_{data['dlco']}", evidence,
                    thresholds, RULE, SOURCE, tuple(caveats), data)
+
+
+def _adjust_tag(values: dict[str, Any]) -> str:
+    """Names the adjustments applied to the predicted value, e.g. ' (predicted adjusted for Hb 12.4 g/dL)'."""
+    item = (values.get("diffusion") or {}).get("DLCO") or {}
+    f = (item.get("adjusted") or {}).get("factors") or {}
+    what = []
+    if f.get("hemoglobin_g_dl") is not None:
+        what.append(f"Hb {f['hemoglobin_g_dl']:g} g/dL")
+    if f.get("cohb_percent") is not None:
+        what.append(f"COHb {f['cohb_percent']:g} %")
+    if f.get("barometric_kpa") is not None:
+        what.append(f"barometric pressure {f['barometric_kpa']:.1f} kPa")
+    return f" (predicted adjusted for {', '.join(what)})" if what else ""
 
 
 def _caveats(case: Case, data: dict[str, Any]) -> list[str]:

@@ -19,6 +19,7 @@ __all__ = [
     "STEP_BLOCKS",
     "cautions_html",
     "decision_html",
+    "error_html",
     "evidence_list_html",
     "header_html",
     "quality_html",
@@ -170,6 +171,11 @@ def evidence_list_html(evidence: Mapping[str, Any], limit: int = 24) -> str:
     return "; ".join(shown)
 
 
+def error_html(message: str | None) -> str:
+    """An error message box (empty string when there is no message)."""
+    return f'<div class="pft-error-text">{esc(message)}</div>' if message else ""
+
+
 def cautions_html(cautions: Iterable[str]) -> str:
     """The clinical cautions box shown on every screen."""
     items = "".join(f"<li>{esc(c)}</li>" for c in cautions)
@@ -229,11 +235,15 @@ def decision_html(step: Mapping[str, Any]) -> str:
         meta.append(f"<b>Source.</b> {esc(engine['source'])}")
     if engine.get("caveats"):
         meta.append("<b>Caveats.</b> " + " ".join(esc(c) for c in engine["caveats"]))
-    if engine.get("evidence"):
-        meta.append("<b>Evidence used.</b> " + evidence_list_html(engine["evidence"]))
-    if engine.get("thresholds"):
-        meta.append("<b>Thresholds.</b> " + evidence_list_html(engine["thresholds"]))
     parts.append('<div class="pft-meta">' + "<br>".join(meta) + "</div>")
+    detail = []
+    if engine.get("evidence"):
+        detail.append("<b>Evidence.</b> " + evidence_list_html(engine["evidence"], limit=60))
+    if engine.get("thresholds"):
+        detail.append("<b>Thresholds.</b> " + evidence_list_html(engine["thresholds"], limit=60))
+    if detail:
+        parts.append('<details class="pft-meta pft-details"><summary>Values and thresholds the '
+                     "rule used</summary>" + "<br>".join(detail) + "</details>")
     notes = step.get("notes") or []
     if notes:
         items = "".join(f"<li>{esc(n['text'])} <span class='pft-meta'>— "

@@ -83,9 +83,14 @@ table.pft-evidence td.pft-high {{ color: #4f3590; font-weight: 600; }}
 .pft-meta {{ color: {COLORS['muted']}; font-size: 0.84em; line-height: 1.4; }}
 .pft-meta b {{ color: {COLORS['ink']}; font-weight: 600; }}
 .pft-notes {{ font-size: 0.86em; margin: 4px 0; }}
-.pft-error {{ color: {STATUS_COLORS['error'][0]}; background: {STATUS_COLORS['error'][1]};
-  padding: 3px 8px; border-radius: 4px; font-size: 0.88em; }}
-.pft-error:empty {{ display: none; }}
+.pft-error-text {{ color: {STATUS_COLORS['error'][0]}; background: {STATUS_COLORS['error'][1]};
+  padding: 4px 8px; border-radius: 4px; font-size: 0.88em; }}
+.pft-details summary {{ cursor: pointer; color: {COLORS['pre']}; }}
+.pft-worksheet .pft-accept:not(:disabled) {{ background: {COLORS['pre']}; color: #ffffff; }}
+.pft-worksheet .pft-signoff:not(:disabled) {{ background: {STATUS_COLORS['signed'][1]};
+  color: #ffffff; font-weight: 600; }}
+.pft-worksheet .pft-amend-save, .pft-worksheet .pft-note-save {{
+  background: {STATUS_COLORS['amended'][0]}; color: #ffffff; }}
 .pft-banner {{ padding: 8px 12px; border-radius: 6px; font-weight: 600; margin: 6px 0; }}
 .pft-banner-signed {{ color: {STATUS_COLORS['signed'][0]}; background: {STATUS_COLORS['signed'][1]}; }}
 .pft-banner-open {{ color: {COLORS['muted']}; background: #eef2f5; font-weight: 400; }}

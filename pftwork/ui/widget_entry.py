@@ -224,7 +224,7 @@ class CaseForm(widgets.VBox):
             target = exc.field if exc.field in self.errors else path
             self.errors[target].value = html.escape(str(exc))
         except PftworkError as exc:
-            self.general_error.value = html.escape(str(exc))
+            self.general_error.value = f'<div class="pft-error-text">{html.escape(str(exc))}</div>'
 
     def set_value(self, path: str, value: Any) -> None:
         """Type ``value`` into the field ``path`` (as a user would; used by tests and scripts)."""

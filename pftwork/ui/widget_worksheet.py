@@ -285,7 +285,7 @@ class Worksheet(widgets.VBox):
         try:
             save_record(self.record, self.autosave_path)
         except PftworkError as exc:
-            self.status_line.value = f'<span class="pft-error">{html.escape(str(exc))}</span>'
+            self.status_line.value = render.error_html(str(exc))
             self.last_error = str(exc)
             return None
         self.status_line.value = (f"Saved {html.escape(self.record.updated_utc)} to "
@@ -317,11 +317,11 @@ class Worksheet(widgets.VBox):
             action(*args)
         except PftworkError as exc:
             self.last_error = str(exc)
-            error.value = html.escape(str(exc))
+            error.value = render.error_html(str(exc))
         except Exception as exc:  # surfaced on purpose: the dispatcher would swallow it
             self.last_error = traceback.format_exc()
-            error.value = (f"Unexpected error ({type(exc).__name__}): {html.escape(str(exc))}. "
-                           "Nothing was recorded; please report this.")
+            error.value = render.error_html(f"Unexpected error ({type(exc).__name__}): {exc}. "
+                                            "Nothing was recorded; please report this.")
 
     def _name(self) -> str:
         name = self.reviewer.value.strip()
@@ -396,6 +396,7 @@ class Worksheet(widgets.VBox):
 
     def _draw_signoff(self) -> None:
         rec = self.record
+        self.signoff_button.disabled = rec.signoff is not None
         if rec.signoff:
             self.signoff_banner.value = (
                 f'<div class="pft-banner pft-banner-signed">Signed off by '

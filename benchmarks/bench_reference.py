@@ -2,7 +2,7 @@
 
 Both run in this process on the same seeded subjects (default 1,000,000). For pyspiro the
 fastest path is ``Reference.compute(DataFrame, parameter, value_col=..., metrics=(percent,
-zscore, lln, uln))``; pftwork's call returns predicted, LLN, ULN, z, % predicted, percentile
+zscore, lln, uln))``; pftwork's call returns predicted, LLN, ULN, z, % predicted (percentile on first access)
 and the extrapolated flag. The two libraries are timed alternately (the machine is shared),
 ``--repeat`` runs each after a warm-up run; the best (minimum) time of each is reported, the
 usual estimate of cost under background load, and the median is printed beside it.

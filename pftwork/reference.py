@@ -47,12 +47,11 @@ from __future__ import annotations
 
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
-from functools import cache
+from functools import cache, cached_property
 from typing import Any
 
 import numpy as np
 import numpy.typing as npt
-from scipy.special import ndtr
 
 from pftwork import lms as _lms
 from pftwork.errors import CaseError, EquationSetError
@@ -348,8 +347,10 @@ class ReferenceValues:
     ----------
     predicted, lln, uln : ndarray of float64
         Median (M), 5th and 95th centiles (z = ∓1.645), in the parameter's unit.
-    z, percent_predicted, percentile : ndarray of float64
-        Of the measured value (nan where it is missing); ``percentile`` is 100·Φ(z) in %.
+    z, percent_predicted : ndarray of float64
+        Of the measured value (nan where it is missing).
+    percentile : ndarray of float64
+        100·Φ(z) in %; computed on first access (most callers need only z and the limits).
     extrapolated : ndarray of bool
         See the module notes.
     set_id, parameter, unit : str
@@ -361,7 +362,6 @@ class ReferenceValues:
     uln: FloatArray
     z: FloatArray
     percent_predicted: FloatArray
-    percentile: FloatArray
     extrapolated: BoolArray
     set_id: str = ""
     parameter: str = ""
@@ -371,6 +371,11 @@ class ReferenceValues:
 
     def __len__(self) -> int:
         return int(self.predicted.size)
+
+    @cached_property
+    def percentile(self) -> FloatArray:
+        """100·Φ(z) in % (nan where z is nan)."""
+        return _lms.percentile(self.z)
 
     def to_dict(self, i: int = 0) -> dict[str, Any]:
         """Plain Python values for subject ``i`` (flat index): floats, a bool and the labels."""
@@ -504,7 +509,7 @@ def _evaluate(model: _Model, sex: Any, anc: Any, age: FloatArray, height: FloatA
     """Fill the flat output arrays in ``out`` block by block (a loop over blocks, not rows).
 
     ``out`` holds "M" and "ext" and either "L" and "S" (for :func:`lms`) or "lln", "uln" and,
-    with a measured ``y``, "z", "pct" and "centile".
+    with a measured ``y``, "z" and "pct".
     """
     n = age.shape[0]
     scratch = _Scratch(min(BLOCK, n))
@@ -688,16 +693,15 @@ def _limits_and_z(model: _Model, L: FloatArray, M: FloatArray, S: FloatArray, y:
                   out: dict[str, npt.NDArray[Any]], scratch: _Scratch) -> None:
     """LLN, ULN and, with a measured value, z, % predicted and percentile of one block.
 
-    Same formulas as :mod:`pftwork.lms` (which is used as is where L may be near zero);
-    here ``L*S`` is shared. S is overwritten.
+    Same formulas as :mod:`pftwork.lms` (which is used as is when a block has an L within
+    1e-3 of zero); here ``L*S`` is shared. S is overwritten.
     """
-    if model.l_may_be_zero:
+    if model.l_may_be_zero and not (L.min() > 1e-3 or L.max() < -1e-3):
         out["lln"][...] = _lms.lower_limit(L, M, S)
         out["uln"][...] = _lms.upper_limit(L, M, S)
         if y is not None:
             out["z"][...] = _lms.z_score(y, L, M, S)
             out["pct"][...] = _lms.percent_predicted(y, M)
-            out["centile"][...] = _lms.percentile(out["z"])
         return
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         ls = S
@@ -720,8 +724,6 @@ def _limits_and_z(model: _Model, L: FloatArray, M: FloatArray, S: FloatArray, y:
         np.expm1(z, out=z)
         z /= ls
         pct *= 100.0
-        centile = ndtr(z, out=out["centile"])
-        centile *= 100.0
 
 
 def _prepare(set_id: str, parameter: str, sex: Any, age: Any, height: Any, ancestry: Any,
@@ -852,16 +854,16 @@ def reference_values(set_id: str, parameter: str, sex: Any, age: Any, height: An
     """
     eq, name, model, unit_out, sex_c, anc_c, age_a, h_a, y_a, shape = _prepare(
         set_id, parameter, sex, age, height, ancestry, unit, measured)
-    names = ("M", "lln", "uln", "z", "pct", "centile")
+    names = ("M", "lln", "uln", "z", "pct")
     out = _outputs_for(age_a.shape[0], names)
     _evaluate(model, sex_c, anc_c, age_a, h_a, y_a, out)
     if y_a is None:
-        for name in ("z", "pct", "centile"):
+        for name in ("z", "pct"):
             out[name].fill(np.nan)
-    M, lln, uln, z, pct, centile = (_shaped(out[k], shape) for k in names)
+    M, lln, uln, z, pct = (_shaped(out[k], shape) for k in names)
     ext = _shaped(out["ext"], shape)
     return ReferenceValues(
-        predicted=M, lln=lln, uln=uln, z=z, percent_predicted=pct, percentile=centile,
+        predicted=M, lln=lln, uln=uln, z=z, percent_predicted=pct,
         extrapolated=ext,
         set_id=eq.id, parameter=name, unit=unit_out,
     )

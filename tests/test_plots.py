@@ -72,14 +72,14 @@ class TestZscoreFigure:
         """Post-BD FEV1 is drawn on the FEV1 row with its own z."""
         post = [t for t in plots.zscore_figure(values).data if t.name == "post-BD"][0]
 
-        assert values["post"]["FEV1"]["z"] == pytest.approx(dict(zip(post.y, post.x))["FEV1"])
+        assert values["post"]["FEV1"]["z"] == pytest.approx(dict(zip(post.y, post.x, strict=True))["FEV1"])
 
     def test_extreme_z_is_clipped_to_the_axis(self, values):
         """A z beyond the axis is drawn inside it, and the label keeps the true value."""
         v = copy.deepcopy(values)
         v["pre"]["FEV1"]["z"] = -9.3
         pre = plots.zscore_figure(v).data[0]
-        x = dict(zip(pre.y, pre.x))["FEV1"]
+        x = dict(zip(pre.y, pre.x, strict=True))["FEV1"]
 
         assert plots.Z_RANGE[0] < x < -5.5
         assert "-9.3" in list(pre.text)

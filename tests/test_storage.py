@@ -169,8 +169,9 @@ def test_killed_kernel_resumes_where_reviewer_stopped(tmp_path):
         n.note_save.click()
         os.kill(os.getpid(), signal.SIGKILL)
     """)
+    env = {**os.environ, "PFTWORK_AUTOSAVE_DIR": str(tmp_path)}
     proc = subprocess.run([sys.executable, "-c", script], cwd=tmp_path, capture_output=True,
-                          text=True, timeout=120)
+                          text=True, timeout=120, env=env)
 
     assert -signal.SIGKILL == proc.returncode, proc.stderr
     resumed = load_record(autosave_path("clinic-A-0192", tmp_path))

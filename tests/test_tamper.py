@@ -195,3 +195,14 @@ def test_record_is_canonical_json(exported):
     nb = nbformat.read(exported, as_version=4)
     record = nb.metadata["pftwork"]["record"]
     assert record == json.loads(canonical_json(record))
+
+
+def test_malformed_record_is_a_named_mismatch_not_a_traceback(exported, tmp_path):
+    """A record edited into the wrong shape (decision replaced by text) is reported, exit 1."""
+    def edit(r):
+        _step(r, "volumes")["decision"] = "accepted"
+
+    path = tamper(exported, tmp_path / "shape.ipynb", edit, cell_too=False)
+    report = verify_notebook(path, execute=False)
+    assert 1 == report.exit_code
+    assert ("record", "structure") in {(p.where, p.field) for p in report.problems}

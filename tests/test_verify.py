@@ -47,6 +47,7 @@ class TestUnreadable:
         report = verify_notebook(tmp_path / "nope.ipynb", execute=False)
         assert ("unreadable", 2) == (report.status, report.exit_code)
         assert "no such file" in report.format_report()
+        assert f"{tmp_path / 'nope.ipynb'}: no such file" == report.error_line
 
     def test_not_json(self, tmp_path):
         """A file that is not notebook JSON is unreadable (exit 2)."""
@@ -114,6 +115,7 @@ class TestFormatsAndVersions:
                                  execute=False)
         assert 1 == report.exit_code
         assert ["engine.conclusion"] == [p.field for p in report.step("volumes").problems]
+        assert report.error_line.startswith(f"{report.path}: volumes: engine.conclusion: recorded")
 
 
 def test_user_cells_are_not_executed_and_are_listed(unexecuted, tmp_path):

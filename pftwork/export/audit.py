@@ -107,8 +107,11 @@ def load_record(record_json: str | Mapping[str, Any]) -> AuditRecord:
     if problems:
         raise AuditError("record chain broken:\n" + "\n".join(f"  {p}" for p in problems))
     print(f"record chain intact: {len(data.get('steps') or [])} steps, sealed")
-    print("embedded case:")
-    print(json.dumps(_trimmed(data.get("case")), indent=2, ensure_ascii=False))
+    case = _trimmed(data.get("case") or {})
+    print(f"embedded case ({case.get('format', 'pftwork-case/1')}), one block per line:")
+    for key, value in case.items():
+        if key != "format":
+            print(f"  {key}: {json.dumps(value, ensure_ascii=False, separators=(', ', ': '))}")
     return record
 
 

@@ -106,7 +106,7 @@ def html_from_record(export: Mapping[str, Any], *, title: str | None = None) -> 
         '<meta name="viewport" content="width=device-width, initial-scale=1">'
         f"<title>{page_title}</title><style>{_CSS}</style></head><body>"
         "<h1>Pulmonary function worksheet</h1>"
-        f'<div class="caution"><b>Decision support only.</b><ul>{cautions}</ul></div>'
+        f'<div class="caution"><b>Cautions</b><ul>{cautions}</ul></div>'
         f"{deid}{_table([], rows, 'facts')}"
         f'<p class="small">Record chain head (SHA-256): <span class="hash">{html_text(h["head"])}'
         "</span>. The auditable notebook of the same export carries this head; "

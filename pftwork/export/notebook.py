@@ -86,7 +86,7 @@ def _header_markdown(export: Mapping[str, Any]) -> str:
              ["Reviewer", h["reviewer"]], ["Sign-off", h["signoff"]],
              ["Record chain head (SHA-256)", h["head"]]]
     parts = ["# Pulmonary function worksheet: auditable record",
-             "**Decision support only.** " + md_text(" ".join(h["cautions"][:1])),
+             "**Cautions.** " + md_text(" ".join(h["cautions"][:1])),
              "\n".join(f"- {md_text(c)}" for c in h["cautions"][1:]),
              _table(["Item", "Value"], rows)]
     if h["deidentified"]:
@@ -318,7 +318,8 @@ def export_notebook(record: Any, path: str | Path, *, execute: bool = True,
     Raises
     ------
     NotebookError
-        When ``path`` exists but is not a notebook.
+        When ``path`` exists but is not a pftwork notebook, or execution fails (no kernel,
+        timeout, a check cell raising).
     """
     path = Path(path)
     base = None
@@ -328,7 +329,13 @@ def export_notebook(record: Any, path: str | Path, *, execute: bool = True,
             raise NotebookError(f"{path}: exists and is not a pftwork worksheet; not overwritten")
     nb = build_notebook(record, deidentify=deidentify, key=_pseudonym_key(), base=base)
     if execute:
-        execute_notebook(nb, timeout=timeout, cwd=path.parent.resolve())
+        try:
+            execute_notebook(nb, timeout=timeout, cwd=path.parent.resolve())
+        except Exception as exc:  # kernel missing or dead, timeout, or a failing check cell
+            first = str(exc).strip().splitlines()[-1:] or [""]
+            raise NotebookError(f"{path}: executing the worksheet notebook failed "
+                                f"({type(exc).__name__}: {first[0][:300]}); is ipykernel "
+                                "installed in this Python?") from exc
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(path.name + ".tmp")
     nbformat.write(nb, str(tmp))

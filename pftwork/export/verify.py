@@ -130,6 +130,18 @@ class VerifyReport:
         """Problems attributed to ``where`` (a step id, ``"record"`` or ``"notebook"``)."""
         return [p for p in self.problems if p.where == where]
 
+    @property
+    def error_line(self) -> str | None:
+        """One line for stderr when the status is not valid (first problem named), else None."""
+        if self.status == "valid" or not self.problems:
+            return None
+        p = self.problems[0]
+        more = f" (and {len(self.problems) - 1} more; see the report)" if len(self.problems) > 1 else ""
+        if p.message.startswith(self.path):
+            return p.message + more
+        where = "" if p.where == "notebook" else f"{p.where}: {p.field}: "
+        return f"{self.path}: {where}{p.message}{more}"
+
     def format_report(self) -> str:
         """The human-readable report (what ``pftwork verify`` prints)."""
         lines = [f"pftwork verify: {self.path}",
@@ -140,6 +152,9 @@ class VerifyReport:
                          f"{__version__}; {how}")
         if self.chain_head:
             lines.append(f"chain head: {self.chain_head}")
+        if self.status == "unreadable":
+            lines += [f"reason: {p.message}" for p in self.problems]
+            return "\n".join(lines)
         general = [p for p in self.problems if p.where in ("record", "notebook", "sign-off")]
         if general:
             lines.append("record:")
@@ -337,12 +352,12 @@ def _output_text(cell: Mapping[str, Any]) -> str:
 
 
 def _check_execution(report: VerifyReport, nb: Any, fresh_nb: Any, step_ids: list[str],
-                     timeout: int) -> bool:
+                     timeout: int) -> None:
     try:
         execute_notebook(fresh_nb, timeout=timeout, allow_errors=True)
     except Exception as exc:  # the kernel could not start or timed out
         _unreadable(report, f"could not re-execute the notebook ({type(exc).__name__}: {exc})")
-        return False
+        return
     report.executed = True
     stored = {c.get("id"): c for c in nb.cells if is_generated(c)}
     unexecuted = 0
@@ -369,7 +384,6 @@ def _check_execution(report: VerifyReport, nb: Any, fresh_nb: Any, step_ids: lis
     if unexecuted:
         report.notes.append(f"{unexecuted} code cell(s) were stored without outputs (exported "
                             "without execution); their re-execution was checked, not compared")
-    return True
 
 
 def _first_difference(a: str, b: str) -> str:
@@ -421,6 +435,25 @@ def verify_notebook(path: str | Path, *, execute: bool = True, timeout: int = 12
     if recorded_with and recorded_with != report.recorded_version:
         report.problems.append(Problem("record", "pftwork_version", f"metadata says "
                                        f"{report.recorded_version}, the record {recorded_with}"))
+    try:
+        _check_record(report, nb, meta, meta_record, cell_record, why, record, execute, timeout)
+    except (TypeError, AttributeError, KeyError, ValueError, IndexError) as exc:
+        # Only a hand-edited record has the wrong shape: a mismatch, named, never a traceback.
+        report.problems.append(Problem("record", "structure", f"malformed record "
+                                       f"({type(exc).__name__}: {str(exc)[:200]})"))
+    if report.status == "unreadable":
+        return report
+    for s in report.steps:
+        s.problems = [p for p in report.problems if p.where == s.id]
+    report.status = "mismatch" if report.problems else "valid"
+    return report
+
+
+def _check_record(report: VerifyReport, nb: Any, meta: Mapping[str, Any],
+                  meta_record: Mapping[str, Any] | None, cell_record: Mapping[str, Any] | None,
+                  why: str | None, record: Mapping[str, Any], execute: bool,
+                  timeout: int) -> None:
+    """Checks 2-6 of the module docstring, appending to ``report``."""
     step_ids = [str(s.get("id")) for s in record.get("steps") or [] if isinstance(s, Mapping)]
     report.steps = [StepCheck(sid) for sid in step_ids]
     if report.version_changed:
@@ -437,9 +470,5 @@ def verify_notebook(path: str | Path, *, execute: bool = True, timeout: int = 12
             report.steps.append(StepCheck(sid))
     fresh_nb = notebook_from_record(record)
     _check_cells(report, nb, fresh_nb, step_ids)
-    if execute and not _check_execution(report, nb, fresh_nb, step_ids, timeout):
-        return report
-    for s in report.steps:
-        s.problems = [p for p in report.problems if p.where == s.id]
-    report.status = "mismatch" if report.problems else "valid"
-    return report
+    if execute:
+        _check_execution(report, nb, fresh_nb, step_ids, timeout)

@@ -67,6 +67,22 @@ def _layout(fig: go.Figure, title: str, height: int) -> go.Figure:
     return fig
 
 
+def _span(axis: str, lo: float, hi: float) -> dict[str, Any]:
+    """A shaded band across the plot between ``lo`` and ``hi`` on ``axis`` ("x" or "y")."""
+    other = "y" if axis == "x" else "x"
+    return {"type": "rect", f"{axis}ref": axis, f"{other}ref": "paper", f"{axis}0": lo,
+            f"{axis}1": hi, f"{other}0": 0, f"{other}1": 1, "fillcolor": COLORS["band"],
+            "line": {"width": 0}, "layer": "below"}
+
+
+def _rule(axis: str, at: float, color: str, dash: str = "solid") -> dict[str, Any]:
+    """A line across the plot at ``at`` on ``axis``."""
+    other = "y" if axis == "x" else "x"
+    return {"type": "line", f"{axis}ref": axis, f"{other}ref": "paper", f"{axis}0": at,
+            f"{axis}1": at, f"{other}0": 0, f"{other}1": 1,
+            "line": {"color": color, "width": 1, "dash": dash}, "layer": "below"}
+
+
 def _empty(title: str, message: str) -> go.Figure:
     fig = go.Figure()
     fig.add_annotation(text=message, showarrow=False, x=0.5, y=0.5, xref="paper", yref="paper",
@@ -153,20 +169,19 @@ def zscore_figure(values: Mapping[str, Mapping[str, Mapping[str, Any]]],
             continue
         fig.add_trace(go.Scatter(
             x=[_clip(_z(r[phase]) or 0.0) for r in pts], y=[r["row"] for r in pts],
-            mode="markers+text", name="measured" if phase == "pre" else "post-BD",
-            text=[f"{_z(r[phase]):+.1f}" for r in pts],
-            textposition="middle right" if phase == "pre" else "middle left",
-            textfont={"size": 10, "color": color},
+            mode="markers+text" if phase == "pre" else "markers",
+            name="measured" if phase == "pre" else "post-BD",
+            text=[f"{_z(r[phase]):+.1f}" for r in pts] if phase == "pre" else None,
+            textposition="middle right", textfont={"size": 10, "color": color},
             marker={"symbol": SYMBOLS[phase], "size": 11, "color": color,
                     "line": {"width": 1.5, "color": color}},
             hovertext=[_hover(r["param"], _PHASES[phase] if r["block"] == "pre" else "", r[phase])
                        for r in pts],
             hoverinfo="text"))
-    fig.add_vrect(x0=Z_LLN, x1=-Z_LLN, fillcolor=COLORS["band"], line_width=0, layer="below")
-    for edge in (Z_LLN, -Z_LLN):
-        fig.add_vline(x=edge, line={"color": COLORS["band_edge"], "width": 1})
-    for guide in SEVERITY_LINES:
-        fig.add_vline(x=guide, line={"color": COLORS["severity"], "width": 1, "dash": "dot"})
+    fig.update_layout(shapes=[
+        _span("x", Z_LLN, -Z_LLN),
+        *(_rule("x", edge, COLORS["band_edge"]) for edge in (Z_LLN, -Z_LLN)),
+        *(_rule("x", guide, COLORS["severity"], "dot") for guide in SEVERITY_LINES)])
     fig.update_yaxes(categoryorder="array", categoryarray=list(reversed(labels)),
                      showgrid=True)
     fig.update_xaxes(range=list(Z_RANGE), dtick=1, title_text="z-score  (shaded: normal range, "
@@ -344,9 +359,8 @@ def trend_figure(points: Sequence[Mapping[str, Any]],
     series = {k: [(p["date"], p[k]) for p in pts if p.get(k) is not None] for k in params}
     if not any(series.values()):
         return _empty(title, "No earlier tests with reference values")
-    fig = go.Figure()
-    fig.add_hrect(y0=Z_LLN, y1=-Z_LLN, fillcolor=COLORS["band"], line_width=0, layer="below")
-    fig.add_hline(y=Z_LLN, line={"color": COLORS["band_edge"], "width": 1})
+    fig = go.Figure(layout={"shapes": [_span("y", Z_LLN, -Z_LLN),
+                                       _rule("y", Z_LLN, COLORS["band_edge"])]})
     for k, pts_k in series.items():
         if not pts_k:
             continue

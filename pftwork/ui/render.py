@@ -114,20 +114,29 @@ def values_table_html(values: Mapping[str, Mapping[str, Mapping[str, Any]]],
             label = esc(param.replace("_", "")) + (
                 f' <span class="pft-meta">{_BLOCK_NAMES[block]}</span>'
                 if _BLOCK_NAMES.get(block) else "")
-            z = item.get("z")
-            pct = item.get("percent_predicted")
-            rows.append(
-                f"<tr><td>{label}</td><td>{_sig(item.get('measured'))}</td>"
-                f"<td>{esc(item.get('unit') or '')}</td><td>{_sig(item.get('predicted'))}</td>"
-                f"<td>{_sig(item.get('lln'))}</td><td>{_sig(item.get('uln'))}</td>"
-                f"<td{_row_class(z)}>{'–' if z is None else f'{z:+.2f}'}</td>"
-                f"<td>{'–' if pct is None else f'{pct:.0f}'}</td>"
-                f"<td>{z_glyph_svg(z)}</td></tr>")
+            rows.append(_value_row(label, item))
+            adjusted = item.get("adjusted")
+            if isinstance(adjusted, Mapping) and adjusted.get("z") is not None:
+                rows.append(_value_row(f'{esc(param)} <span class="pft-meta">adjusted (Hb, COHb, '
+                                       "altitude)</span>",
+                                       {**adjusted, "measured": item.get("measured"),
+                                        "unit": item.get("unit")}))
     if not rows:
         return ""
     head = ("<tr><th>Parameter</th><th>Measured</th><th>Unit</th><th>Predicted</th><th>LLN</th>"
             "<th>ULN</th><th>z</th><th>% pred</th><th>z −5 … +3</th></tr>")
     return f'<table class="pft-evidence">{head}{"".join(rows)}</table>'
+
+
+def _value_row(label: str, item: Mapping[str, Any]) -> str:
+    z = item.get("z")
+    pct = item.get("percent_predicted")
+    return (f"<tr><td>{label}</td><td>{_sig(item.get('measured'))}</td>"
+            f"<td>{esc(item.get('unit') or '')}</td><td>{_sig(item.get('predicted'))}</td>"
+            f"<td>{_sig(item.get('lln'))}</td><td>{_sig(item.get('uln'))}</td>"
+            f"<td{_row_class(z)}>{'–' if z is None else f'{z:+.2f}'}</td>"
+            f"<td>{'–' if pct is None else f'{pct:.0f}'}</td>"
+            f"<td>{z_glyph_svg(z) if z is not None else ''}</td></tr>")
 
 
 def quality_html(quality: Mapping[str, Any]) -> str:

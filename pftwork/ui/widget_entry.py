@@ -219,7 +219,7 @@ class CaseForm(widgets.VBox):
         _set(self.raw, path, value)
         self._unit_labels()
         try:
-            self._on_change(copy.deepcopy(self.raw))
+            self._on_change(dict(self.raw))  # the loader copies what it keeps
         except CaseError as exc:
             target = exc.field if exc.field in self.errors else path
             self.errors[target].value = html.escape(str(exc))

@@ -24,7 +24,7 @@ import plotly.io as pio
 
 from pftwork.errors import PftworkError, WorksheetError
 from pftwork.ui import plots, render
-from pftwork.ui.style import css_block
+from pftwork.ui.style import COLORS, css_block
 from pftwork.ui.widget_entry import CaseForm
 from pftwork.worksheet.record import WorksheetRecord
 from pftwork.worksheet.storage import autosave_path, load_record, save_record
@@ -218,7 +218,8 @@ class Worksheet(widgets.VBox):
                                      description="Reviewer", layout=widgets.Layout(width="320px"))
         self.reviewer.add_class("pft-reviewer")
         self.progress = widgets.IntProgress(min=0, max=max(1, len(rec.steps)),
-                                            layout=widgets.Layout(width="220px"))
+                                            layout=widgets.Layout(width="220px"),
+                                            style={"bar_color": COLORS["pre"]})
         self.progress.add_class("pft-progress")
         self.progress_label = widgets.HTML()
         self.progress_label.add_class("pft-progress-label")
@@ -378,13 +379,12 @@ class Worksheet(widgets.VBox):
     def _draw_plots(self) -> None:
         rec = self.record
         show_figure(self.overview, plots.zscore_figure(rec.interpretation.get("values") or {}))
-        case = _case_or_none(rec.case_raw)
+        case = _case_or_none(rec)
         by_step: dict[str, list[go.Figure]] = {}
         if case is not None:
-            curves = plots.select_curves(case)
-            if curves:
-                by_step["validity"] = [plots.flow_volume_figure(curves),
-                                       plots.volume_time_figure(curves)]
+            curve_figs = self._curve_figures(case)
+            if curve_figs:
+                by_step["validity"] = curve_figs
             points = _trend_points(case, rec.interpretation)
             if len(points) > 1:
                 by_step["change"] = [plots.trend_figure(points)]
@@ -393,6 +393,19 @@ class Worksheet(widgets.VBox):
             for fig in figs:
                 fig.update_layout(width=520 if len(figs) > 1 else 760)
             panel.plots.children = [figure_output(f) for f in figs]
+
+    def _curve_figures(self, case: Any) -> list[go.Figure]:
+        """Flow-volume and volume-time figures, recomputed only when the raw curves change."""
+        spiro = self.record.case_raw.get("spirometry") or {}
+        key = [(spiro.get(phase) or {}).get("trials") for phase in ("pre", "post")]
+        cached = getattr(self, "_curve_cache", None)
+        if cached is not None and cached[0] == key:
+            return cached[1]
+        curves = plots.select_curves(case)
+        figs = ([plots.flow_volume_figure(curves), plots.volume_time_figure(curves)]
+                if curves else [])
+        self._curve_cache = (key, figs)
+        return figs
 
     def _draw_signoff(self) -> None:
         rec = self.record
@@ -423,11 +436,9 @@ def _raw_of(case: Any) -> dict[str, Any]:
                          "dictionary or a pftwork Case")
 
 
-def _case_or_none(raw: Mapping[str, Any]) -> Any:
-    from pftwork.case import load_case
-
+def _case_or_none(record: WorksheetRecord) -> Any:
     try:
-        return load_case(raw)
+        return record.case
     except PftworkError:
         return None
 

@@ -183,17 +183,37 @@ class WorksheetRecord:
                  steps: list[StepRecord], *, signoff: dict[str, Any] | None = None,
                  created_utc: str | None = None, updated_utc: str | None = None,
                  marked_identifiers: list[str] | None = None,
-                 events: list[dict[str, Any]] | None = None, now: Clock | None = None) -> None:
+                 events: list[dict[str, Any]] | None = None, now: Clock | None = None,
+                 _adopt: bool = False) -> None:
         self._now = now
         stamp = utc_stamp(now)
-        self.case_raw: dict[str, Any] = copy.deepcopy(dict(case_raw))
-        self.interpretation: dict[str, Any] = copy.deepcopy(dict(interpretation))
+        copier = dict if _adopt else copy.deepcopy
+        self.case_raw: dict[str, Any] = copier(dict(case_raw))
+        self.interpretation: dict[str, Any] = copier(dict(interpretation))
         self.steps: list[StepRecord] = list(steps)
         self.signoff = dict(signoff) if signoff else None
         self.created_utc = created_utc or stamp
         self.updated_utc = updated_utc or self.created_utc
         self.marked_identifiers: list[str] = list(marked_identifiers or [])
         self.events: list[dict[str, Any]] = list(events or [])
+
+    @property
+    def case_raw(self) -> dict[str, Any]:
+        """The case dictionary as given (treat as read-only; edit through :meth:`update_case`)."""
+        return self._case_raw
+
+    @case_raw.setter
+    def case_raw(self, value: dict[str, Any]) -> None:
+        self._case_raw = value
+        self._case = None
+        self._case_json: str | None = None
+
+    def case_raw_json(self) -> str:
+        """Compact JSON text of :attr:`case_raw`, cached until the case changes."""
+        if self._case_json is None:
+            self._case_json = json.dumps(self._case_raw, ensure_ascii=False,
+                                         separators=(",", ":"), allow_nan=False)
+        return self._case_json
 
     # -- construction ---------------------------------------------------------------------
     @classmethod
@@ -217,7 +237,10 @@ class WorksheetRecord:
         """
         case = _load(case_or_raw)
         document = _interpret(case, equations)
-        record = cls.from_interpretation(case.raw, document, now=now)
+        steps = [StepRecord(id=str(s["id"]), engine=copy.deepcopy(dict(s)))
+                 for s in document.get("steps", [])]
+        record = cls(case.raw, document, steps, now=now, _adopt=True)
+        record._case = case
         record.events.append({"time_utc": record.created_utc, "event": "created", "step": None,
                               "by": None})
         return record
@@ -263,6 +286,13 @@ class WorksheetRecord:
     def unreviewed(self) -> tuple[str, ...]:
         """Ids of the steps still pending."""
         return tuple(s.id for s in self.steps if not s.decision.reviewed)
+
+    @property
+    def case(self) -> Any:
+        """The validated :class:`~pftwork.case_model.Case` of ``case_raw`` (loaded once, cached)."""
+        if self._case is None:
+            self._case = _load(self.case_raw)
+        return self._case
 
     @property
     def case_id(self) -> str:
@@ -396,21 +426,27 @@ class WorksheetRecord:
                 reset.append(step.id)
             step.engine = copy.deepcopy(dict(finding))
             new_steps.append(step)
-        self.case_raw = copy.deepcopy(dict(case.raw))
-        self.interpretation = copy.deepcopy(document)
+        self.case_raw = dict(case.raw)  # the loader's own copy: nobody else holds it
+        self._case = case
+        self.interpretation = document
         self.steps = new_steps
         self._changed("case_updated", None, None, stamp, reset=reset)
         return reset
 
     # -- serialisation --------------------------------------------------------------------
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-safe dictionary (``format: "pftwork-worksheet/1"``)."""
+    def to_dict(self, *, copy_data: bool = True) -> dict[str, Any]:
+        """JSON-safe dictionary (``format: "pftwork-worksheet/1"``).
+
+        ``copy_data=False`` shares ``case_raw`` and ``interpretation`` with the record instead
+        of deep-copying them (for immediate serialisation; do not modify the result).
+        """
+        copier = copy.deepcopy if copy_data else (lambda x: x)
         return {
             "format": self.FORMAT,
             "created_utc": self.created_utc,
             "updated_utc": self.updated_utc,
-            "case_raw": copy.deepcopy(self.case_raw),
-            "interpretation": copy.deepcopy(self.interpretation),
+            "case_raw": copier(self.case_raw),
+            "interpretation": copier(self.interpretation),
             "steps": [s.to_dict() for s in self.steps],
             "signoff": dict(self.signoff) if self.signoff else None,
             "marked_identifiers": list(self.marked_identifiers),

@@ -78,7 +78,10 @@ def save_record(record: WorksheetRecord, path: str | Path) -> Path:
         When the folder is not writable (the previous file is left untouched).
     """
     path = Path(path)
-    text = json.dumps(record.to_dict(), ensure_ascii=False, indent=1, sort_keys=False)
+    body = record.to_dict(copy_data=False)
+    del body["case_raw"]  # appended from the record's cached text (raw curves can be large)
+    text = (json.dumps(body, ensure_ascii=False, separators=(",", ":"))[:-1]
+            + ',"case_raw":' + record.case_raw_json() + "}")
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = _write_temp(path, text)
@@ -86,6 +89,7 @@ def save_record(record: WorksheetRecord, path: str | Path) -> Path:
             if _is_good(path):
                 _keep_backup(path)
             os.replace(tmp, path)
+            _remember(path)
         except BaseException:
             with contextlib.suppress(OSError):
                 os.unlink(tmp)
@@ -141,8 +145,35 @@ def _write_temp(path: Path, text: str) -> str:
     return tmp
 
 
+#: (size, mtime_ns) of the files this process wrote completely, by absolute path.
+_WRITTEN: dict[str, tuple[int, int]] = {}
+
+
+def _signature(path: Path) -> tuple[int, int] | None:
+    try:
+        st = path.stat()
+    except OSError:
+        return None
+    return st.st_size, st.st_mtime_ns
+
+
+def _remember(path: Path) -> None:
+    sig = _signature(path)
+    if sig is not None:
+        _WRITTEN[str(path.resolve())] = sig
+
+
 def _is_good(path: Path) -> bool:
-    """``True`` when ``path`` holds a parseable worksheet record (worth keeping as .bak)."""
+    """``True`` when ``path`` holds a parseable worksheet record (worth keeping as .bak).
+
+    A file this process wrote itself and that is unchanged since (same size and mtime) is
+    known to be good without parsing it again.
+    """
+    sig = _signature(path)
+    if sig is None:
+        return False
+    if _WRITTEN.get(str(path.resolve())) == sig:
+        return True
     try:
         data = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, ValueError):

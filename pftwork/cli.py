@@ -54,6 +54,16 @@ def _parser() -> argparse.ArgumentParser:
     v.add_argument("--no-execute", action="store_true",
                    help="check the chain and recompute in this process without starting a kernel")
 
+    b = sub.add_parser("batch", help="vectorised interpretation of a CSV/Parquet table of tests, "
+                       "one row per test (design.md §6)")
+    b.add_argument("table", help="input table (.csv, or .parquet with pyarrow installed)")
+    b.add_argument("-o", "--output", required=True, help="table to write (.csv or .parquet)")
+    b.add_argument("--compare", metavar="SET_A,SET_B",
+                   help="two spirometry equation sets, e.g. gli-global-2022,gli-2012: adds "
+                   "the second set's columns (suffix @SET_B) and pattern_changes")
+    b.add_argument("--mapping", metavar="MAP.json",
+                   help='JSON object renaming other column spellings: {"their": "ours"}')
+
     pr = sub.add_parser("present", help="serve a read-only, de-identified page of a worksheet "
                         "for a case conference (127.0.0.1)")
     pr.add_argument("source", help="case file, worksheet autosave (.pftwork.json) or notebook")
@@ -118,7 +128,7 @@ def cmd_worksheet(args: argparse.Namespace) -> int:
         from .export.html import write_html
 
         html_path = out.with_suffix(".html")
-        write_html(record, html_path, deidentify=args.deidentify)
+        write_html(out, html_path)  # from the notebook itself: same record, same chain head
         print(f"wrote {html_path}")
     return 0
 
@@ -128,7 +138,24 @@ def cmd_verify(args: argparse.Namespace) -> int:
 
     report = verify_notebook(args.notebook, execute=not args.no_execute)
     print(report.format_report())
+    if report.exit_code == 2 and report.error_line:
+        print(f"pftwork verify: error: {report.error_line}", file=sys.stderr)
     return report.exit_code
+
+
+def cmd_batch(args: argparse.Namespace) -> int:
+    from .batch import interpret_table, read_mapping, read_table, write_table
+
+    compare = None
+    if args.compare is not None:
+        compare = [t.strip() for t in args.compare.split(",") if t.strip()]
+    mapping = read_mapping(args.mapping) if args.mapping else None
+    table = read_table(args.table, mapping)
+    result = interpret_table(table, compare=compare)
+    write_table(result, args.output)
+    bad = int((result["error"] != "").sum())
+    print(f"wrote {args.output}: {len(result)} rows, {bad} with an error (see the 'error' column)")
+    return 0
 
 
 def cmd_present(args: argparse.Namespace) -> int:
@@ -173,7 +200,7 @@ def _usage(field: str, value: object, expected: str) -> PftworkError:
 
 
 COMMANDS = {"interpret": cmd_interpret, "worksheet": cmd_worksheet, "verify": cmd_verify,
-            "present": cmd_present, "demo": cmd_demo}
+            "present": cmd_present, "demo": cmd_demo, "batch": cmd_batch}
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -248,3 +248,14 @@ class TestExecutedExport:
         """Executed with store_widget_state=False: no widget state in the metadata."""
         nb = nbformat.read(executed, as_version=4)
         assert "widgets" not in nb.metadata
+
+
+def test_stale_record_refused_before_execution(tmp_path):
+    """A record whose engine finding differs from this pftwork's is refused (named), not run."""
+    from pftwork.errors import NotebookError
+
+    data = reviewed_record().to_dict()
+    next(s for s in data["steps"] if s["id"] == "volumes")["engine"]["status"] = "restriction"
+    with pytest.raises(NotebookError, match="volumes: engine.status: recorded 'restriction'"):
+        export_notebook(WorksheetRecord.from_dict(data), tmp_path / "s.ipynb", execute=True)
+    assert not (tmp_path / "s.ipynb").exists()

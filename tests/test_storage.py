@@ -179,3 +179,16 @@ def test_killed_kernel_resumes_where_reviewer_stopped(tmp_path):
     assert "Obstruction, grading deferred." == resumed.step("airflow").conclusion
     assert ["RV high"] == [n.text for n in resumed.step("volumes").notes]
     assert (2, 8) == resumed.progress
+
+
+def test_saved_case_text_follows_edits(record, tmp_path):
+    """After a case edit, the saved case is the edited one (the block text cache is refreshed)."""
+    path = tmp_path / "a.pftwork.json"
+    save_record(record, path)
+    raw = example_case()
+    raw["spirometry"]["post"]["FEV1"] = 1.44
+    record.update_case(raw)
+    save_record(record, path)
+
+    assert raw == load_record(path).case_raw
+    assert json.loads(record.case_raw_json()) == record.case_raw

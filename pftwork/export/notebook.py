@@ -286,6 +286,20 @@ def read_notebook(path: str | Path) -> NotebookNode:
                             f"{str(exc)[:200]})") from None
 
 
+def _check_current(export: Mapping[str, Any], path: Path) -> None:
+    """Refuse to execute a record whose engine findings this pftwork would not reproduce."""
+    from .document import recomputation_differences
+
+    diffs = recomputation_differences(export)
+    if diffs:
+        shown = "; ".join(str(d) for d in diffs[:3])
+        raise NotebookError(f"{path}: the worksheet's engine findings differ from this pftwork's "
+                            f"recomputation ({len(diffs)} values, e.g. {shown}); it was "
+                            "interpreted by another engine version: re-interpret it "
+                            "(WorksheetRecord.update_case(record.case_raw)) and review the "
+                            "steps again, or export with execute=False to archive it as is")
+
+
 def _pseudonym_key() -> bytes | None:
     key = os.environ.get("PFTWORK_PSEUDONYM_KEY")
     return key.encode("utf-8") if key else None
@@ -329,6 +343,7 @@ def export_notebook(record: Any, path: str | Path, *, execute: bool = True,
             raise NotebookError(f"{path}: exists and is not a pftwork worksheet; not overwritten")
     nb = build_notebook(record, deidentify=deidentify, key=_pseudonym_key(), base=base)
     if execute:
+        _check_current(nb.metadata["pftwork"]["record"], path)
         try:
             execute_notebook(nb, timeout=timeout, cwd=path.parent.resolve())
         except Exception as exc:  # kernel missing or dead, timeout, or a failing check cell

@@ -380,22 +380,21 @@ class Worksheet(widgets.VBox):
         rec = self.record
         show_figure(self.overview, plots.zscore_figure(rec.interpretation.get("values") or {}))
         case = _case_or_none(rec)
-        by_step: dict[str, list[go.Figure]] = {}
+        by_step: dict[str, list[widgets.Output]] = {}
         if case is not None:
-            curve_figs = self._curve_figures(case)
-            if curve_figs:
-                by_step["validity"] = curve_figs
+            by_step["validity"] = self._curve_outputs(case)
             points = _trend_points(case, rec.interpretation)
             if len(points) > 1:
-                by_step["change"] = [plots.trend_figure(points)]
+                fig = plots.trend_figure(points)
+                fig.update_layout(width=760)
+                by_step["change"] = [figure_output(fig)]
         for panel in self.panels:
-            figs = by_step.get(panel.step_id, [])
-            for fig in figs:
-                fig.update_layout(width=520 if len(figs) > 1 else 760)
-            panel.plots.children = [figure_output(f) for f in figs]
+            outputs = by_step.get(panel.step_id, [])
+            if list(panel.plots.children) != outputs:
+                panel.plots.children = outputs
 
-    def _curve_figures(self, case: Any) -> list[go.Figure]:
-        """Flow-volume and volume-time figures, recomputed only when the raw curves change."""
+    def _curve_outputs(self, case: Any) -> list[widgets.Output]:
+        """Flow-volume and volume-time plots, rebuilt only when the raw curves change."""
         spiro = self.record.case_raw.get("spirometry") or {}
         key = [(spiro.get(phase) or {}).get("trials") for phase in ("pre", "post")]
         cached = getattr(self, "_curve_cache", None)
@@ -404,8 +403,11 @@ class Worksheet(widgets.VBox):
         curves = plots.select_curves(case)
         figs = ([plots.flow_volume_figure(curves), plots.volume_time_figure(curves)]
                 if curves else [])
-        self._curve_cache = (key, figs)
-        return figs
+        for fig in figs:
+            fig.update_layout(width=520)
+        outputs = [figure_output(f) for f in figs]
+        self._curve_cache = (key, outputs)
+        return outputs
 
     def _draw_signoff(self) -> None:
         rec = self.record

@@ -209,10 +209,22 @@ class WorksheetRecord:
         self._case_json: str | None = None
 
     def case_raw_json(self) -> str:
-        """Compact JSON text of :attr:`case_raw`, cached until the case changes."""
+        """Compact JSON text of :attr:`case_raw`, cached until the case changes.
+
+        Top-level blocks equal to those of the previous case reuse their text, so an edit of
+        one field does not re-encode large raw curves.
+        """
         if self._case_json is None:
-            self._case_json = json.dumps(self._case_raw, ensure_ascii=False,
-                                         separators=(",", ":"), allow_nan=False)
+            old = getattr(self, "_block_json", {})
+            new: dict[str, tuple[Any, str]] = {}
+            for key, block in self._case_raw.items():
+                hit = old.get(key)
+                text = hit[1] if hit is not None and hit[0] == block else json.dumps(
+                    block, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
+                new[key] = (block, text)
+            self._block_json = new
+            self._case_json = "{" + ",".join(f"{json.dumps(k)}:{t}" for k, (_, t) in
+                                             new.items()) + "}"
         return self._case_json
 
     # -- construction ---------------------------------------------------------------------

@@ -13,11 +13,13 @@ The output is deterministic (fixed seed per case).
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import numpy as np
 
 from pftwork.lms import value_at_z
+from pftwork.quality.synthetic import synthetic_manoeuvre
 from pftwork.reference import lms
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -54,6 +56,18 @@ def trials(rng, fev1, fvc, n=3, spread=0.06, pef=None, extra=None):
         if extra:
             t.update(extra)
         out.append(t)
+    return out
+
+
+def curve_trials(specs):
+    """Manoeuvres given only as raw volume-time curves (100 Hz) from pftwork's synthetic model."""
+    out = []
+    for i, spec in enumerate(specs):
+        m = synthetic_manoeuvre(rate_hz=100.0, knee_flow_fraction=0.4, expiration_time_s=15.5,
+                                noise_l=0.002, seed=i, **spec)
+        out.append({"label": f"m{i + 1}",
+                    "curve": {"time_s": [round(float(t), 2) for t in m.curve.time_s],
+                              "volume_l": [round(float(v), 3) for v in m.curve.volume_l]}})
     return out
 
 
@@ -138,7 +152,6 @@ def build() -> dict[str, dict]:
     sex, age, h = "male", 67.8, 174.0
     fvc = round(at_z("gli-global-2022", "FVC", sex, age, h, -1.2), 2)
     fev1 = round(at_z("gli-global-2022", "FEV1", sex, age, h, -3.1), 2)
-    fev1_post, fvc_post = round(fev1 + 0.11, 2), round(fvc + 0.18, 2)
     rv = at_z("gli-2021", "RV", sex, age, h, 3.2)
     tlc = at_z("gli-2021", "TLC", sex, age, h, 2.1)
     frc = rv + 0.45 * (tlc - rv)
@@ -159,10 +172,17 @@ def build() -> dict[str, dict]:
         "demo-copd-03", sex, age, h, 70.0, "2026-10-21", "breathlessness on stairs; known COPD",
         {"scenario": "Retired shipyard welder, 45 pack-years, stopped smoking 3 years ago; "
                      "followed in clinic for COPD. Obstruction with hyperinflation and air "
-                     "trapping, reduced gas transfer, slow decline over four years.",
+                     "trapping, reduced gas transfer, decline over four years. The lab sent "
+                     "the raw volume-time curves of every manoeuvre (100 Hz).",
          "expected_pattern": "obstruction"},
-        spirometry={"pre": {"trials": trials(rng, fev1, fvc, pef=4.1)},
-                    "post": {"trials": trials(rng, fev1_post, fvc_post, pef=4.4)},
+        spirometry={"pre": {"trials": curve_trials([
+                        {"vc_l": 3.50, "pef_l_s": 3.8, "curvature": 2.0, "knee_at": 0.12},
+                        {"vc_l": 3.46, "pef_l_s": 3.7, "curvature": 2.05, "knee_at": 0.12},
+                        {"vc_l": 3.52, "pef_l_s": 3.6, "curvature": 2.1, "knee_at": 0.13}])},
+                    "post": {"trials": curve_trials([
+                        {"vc_l": 3.68, "pef_l_s": 4.1, "curvature": 1.95, "knee_at": 0.12},
+                        {"vc_l": 3.64, "pef_l_s": 4.0, "curvature": 1.95, "knee_at": 0.12},
+                        {"vc_l": 3.70, "pef_l_s": 4.05, "curvature": 2.0, "knee_at": 0.12}])},
                     "bronchodilator": {"agent": "salbutamol", "dose": "400 microgram",
                                        "minutes_after": 20}},
         volumes=vols,
@@ -269,10 +289,19 @@ def build() -> dict[str, dict]:
     return cases
 
 
+_NUMBER_LIST = re.compile(r"\[\s+(-?[\d.eE+-]+,\s+)*-?[\d.eE+-]+\s+\]")
+
+
+def _dumps(data: dict) -> str:
+    """Indented JSON, with lists of numbers (raw curves) kept on one line."""
+    return _NUMBER_LIST.sub(lambda m: "[" + " ".join(m.group(0)[1:-1].split()) + "]",
+                            json.dumps(data, indent=2))
+
+
 def main() -> None:
     OUT.mkdir(exist_ok=True)
     for name, c in build().items():
-        (OUT / f"{name}.json").write_text(json.dumps(c, indent=2) + "\n", encoding="utf-8")
+        (OUT / f"{name}.json").write_text(_dumps(c) + "\n", encoding="utf-8")
         print("wrote", OUT / f"{name}.json")
 
 

@@ -10,6 +10,7 @@ decisions. A full-page screenshot is saved under the test's ``tmp_path``.
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
 import pytest
@@ -33,6 +34,8 @@ STEP_TIMEOUT_MS = 20_000
 def page_url(tmp_path):
     """Voila serving the demo notebook, autosaving into tmp_path/autosave."""
     why = missing_browser_tools()
+    if why and os.environ.get("PFTWORK_REQUIRE_BROWSER") == "1":
+        pytest.fail(f"browser test required (PFTWORK_REQUIRE_BROWSER=1) but {why}")
     if why:
         pytest.skip(why)
     autosave = tmp_path / "autosave"

@@ -218,3 +218,21 @@ class TestCaseForm:
 
         assert 80.0 == again.record.case_raw["subject"]["weight_kg"]
         assert "80" == again.form.inputs["subject.weight_kg"].value
+
+
+class TestRecordTab:
+    """De-identification marks and the audit log."""
+
+    def test_mark_identifier_is_saved(self, ws):
+        """Marked free text is kept in the record (for de-identified export) and autosaved."""
+        ws.mark_text.value = "Mrs Example"
+        ws.mark_button.click()
+
+        assert ["Mrs Example"] == _saved(ws).marked_identifiers
+        assert "Mrs Example" in ws.marked.value
+
+    def test_audit_log_lists_actions(self, ws):
+        """The audit log shows every action with its reviewer."""
+        ws.panel("validity").accept_button.click()
+
+        assert "accepted" in ws.audit.value and "Dr W. Idget" in ws.audit.value

@@ -85,6 +85,7 @@ table.pft-evidence td.pft-high {{ color: #4f3590; font-weight: 600; }}
 .pft-notes {{ font-size: 0.86em; margin: 4px 0; }}
 .pft-error-text {{ color: {STATUS_COLORS['error'][0]}; background: {STATUS_COLORS['error'][1]};
   padding: 4px 8px; border-radius: 4px; font-size: 0.88em; }}
+table.pft-log td, table.pft-log th {{ text-align: left; }}
 .pft-details summary {{ cursor: pointer; color: {COLORS['pre']}; }}
 .pft-worksheet .pft-accept:not(:disabled) {{ background: {COLORS['pre']}; color: #ffffff; }}
 .pft-worksheet .pft-signoff:not(:disabled) {{ background: {STATUS_COLORS['signed'][1]};

@@ -253,8 +253,24 @@ class Worksheet(widgets.VBox):
         self.form = CaseForm(rec.case_raw, self._on_case_edit)
         self.audit = widgets.HTML()
         self.audit.add_class("pft-audit")
-        self.tabs = widgets.Tab(children=[review, self.form, self.audit],
-                                titles=("Review", "Case data", "Audit log"))
+        self.mark_text = widgets.Text(placeholder="e.g. a name or number written in a note",
+                                      layout=widgets.Layout(width="360px"))
+        self.mark_text.add_class("pft-mark-text")
+        self.mark_button = StepPanel._button("Mark for de-identification", "pft-mark-add",
+                                             "eye-slash")
+        self.marked = widgets.HTML()
+        self.marked.add_class("pft-marked")
+        self.mark_error = widgets.HTML("")
+        self.mark_error.add_class("pft-error")
+        self.mark_button.on_click(lambda _: self._guard(self.mark_error, self._mark))
+        record_tab = widgets.VBox([
+            widgets.HTML('<div class="pft-section-title">De-identification</div><div '
+                         'class="pft-meta">Free text to remove from de-identified exports, in '
+                         "addition to the subject's name, birth date and record number.</div>"),
+            widgets.HBox([self.mark_text, self.mark_button]), self.marked, self.mark_error,
+            widgets.HTML('<div class="pft-section-title">Audit log</div>'), self.audit])
+        self.tabs = widgets.Tab(children=[review, self.form, record_tab],
+                                titles=("Review", "Case data", "Record"))
         self.tabs.add_class("pft-tabs")
         super().__init__([widgets.HTML(css_block()), self.header, self.cautions, toolbar,
                           self.status_line, self.tabs])
@@ -310,6 +326,9 @@ class Worksheet(widgets.VBox):
             self._draw_plots()
         self._draw_signoff()
         self.audit.value = _audit_html(rec)
+        self.marked.value = ("Marked: " + ", ".join(f"<code>{html.escape(t)}</code>" for t in
+                                                    rec.marked_identifiers)
+                             if rec.marked_identifiers else "Nothing marked.")
 
     # -- actions --------------------------------------------------------------------------
     def _guard(self, error: widgets.HTML, action: Callable[..., Any], *args: Any) -> None:
@@ -351,6 +370,14 @@ class Worksheet(widgets.VBox):
 
     def _sign_off(self) -> None:
         self.record.sign_off(self.reviewer.value)
+        self._changed(())
+
+    def _mark(self) -> None:
+        text = self.mark_text.value.strip()
+        if not text:
+            raise WorksheetError("Type the text to mark first.")
+        self.record.mark_identifier(text)
+        self.mark_text.value = ""
         self._changed(())
 
     def _on_case_edit(self, raw: dict[str, Any]) -> None:
@@ -465,14 +492,10 @@ def _trend_points(case: Any, interpretation: Mapping[str, Any]) -> list[dict[str
                "DLCO": (values.get("diffusion") or {}).get("DLCO", {}).get("z")}
     points = [current]
     sex = case.subject.sex
-    try:
-        from pftwork.interpret import change as _change
-    except ImportError:  # pragma: no cover
-        return points
-    prior_values = getattr(_change, "history_values", None) or getattr(_change, "_prior_values",
-                                                                        None)
+    from pftwork.interpret.change import history_values as prior_values
+
     equations = interpretation.get("equations") or {}
-    if prior_values is None or sex not in ("male", "female") or not equations:
+    if sex not in ("male", "female") or not equations:
         return points
     for h in case.history:
         try:
@@ -492,5 +515,5 @@ def _audit_html(record: WorksheetRecord) -> str:
         f"<td>{html.escape(str(e.get('reason') or e.get('text') or e.get('because') or ''))}"
         f"</td></tr>" for e in record.events)
     return ('<div class="pft-meta">Every action, oldest first; nothing is erased.</div>'
-            '<table class="pft-evidence"><tr><th>Time (UTC)</th><th>Event</th><th>Step</th>'
+            '<table class="pft-evidence pft-log"><tr><th>Time (UTC)</th><th>Event</th><th>Step</th>'
             f"<th>By</th><th>Detail</th></tr>{rows}</table>")

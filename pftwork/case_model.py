@@ -35,12 +35,23 @@ __all__ = [
     "VolumeTrial",
     "SPIRO_PARAMETERS",
     "VOLUME_PARAMETERS",
+    "parameter_label",
     "DIFFUSION_PARAMETERS",
 ]
 
 #: Spirometric parameters a case may carry (trade spelling, as in the case file).
 SPIRO_PARAMETERS = ("FEV1", "FVC", "PEF", "FEF25_75", "FEF75", "FEV0_75", "FEV6", "FEV0_5",
                     "FEF25", "FEF50", "FIVC", "PIF", "FIF50", "VC")
+_LABELS = (("FEF25_75", "FEF25–75"), ("FEV0_75", "FEV0.75"), ("FEV0_5", "FEV0.5"))
+
+
+def parameter_label(name: str) -> str:
+    """The trade's printed spelling of a parameter key (``FEF25_75`` → ``FEF25–75``)."""
+    for key, label in _LABELS:
+        name = name.replace(key, label)
+    return name
+
+
 #: Static lung volume parameters.
 VOLUME_PARAMETERS = ("TLC", "RV", "FRC", "ERV", "IC", "VC")
 #: Single-breath diffusion parameters (held in SI internally).

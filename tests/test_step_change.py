@@ -72,6 +72,40 @@ class TestSlope:
         assert step.data["slope_ml_per_year"] is None
 
 
+class TestDeclineBeyondAgeing:
+    """The FEV1 slope against the decline of the predicted value (our own comparison, using the
+    reference equation's predicted FEV1 at each test's age) and the 40 mL/year "rapid decline"
+    cut (common practice, value from memory)."""
+
+    def test_steep_regular_decline_is_flagged(self):
+        """120 mL/year over four yearly tests (tight fit): beyond ageing and rapid."""
+        history = [("2022-06-01", 3.00), ("2023-06-01", 2.88), ("2024-06-01", 2.76),
+                   ("2025-06-01", 2.64)]
+        data = interpret(load_case(_case(2.52, history))).step("change").data
+
+        assert pytest.approx(-120.0, abs=1.0) == data["slope_ml_per_year"]
+        assert data["expected_slope_ml_per_year"] < 0
+        assert data["excess_decline"] is True
+        assert data["rapid_decline"] is True
+        assert "decline" == data["direction"]
+
+    def test_decline_at_the_predicted_rate_is_not_flagged(self):
+        """A fall equal to that of the predicted FEV1 is ageing, not excess decline."""
+        from pftwork.reference import reference_values
+
+        ages = [46.0, 47.0, 48.0, 49.0, 50.0]
+        pred = reference_values("gli-global-2022", "FEV1", "female", ages, 165.0).predicted
+        dates = ["2022-06-01", "2023-06-01", "2024-06-01", "2025-06-01"]
+        history = [(d, round(float(p) - 0.2, 3)) for d, p in zip(dates, pred[:4])]
+        data = interpret(load_case(_case(round(float(pred[4]) - 0.2, 3), history))).step(
+            "change").data
+
+        assert data["excess_decline"] is False
+        assert data["rapid_decline"] is False
+        assert pytest.approx(data["expected_slope_ml_per_year"], abs=2.0) == \
+            data["slope_ml_per_year"]
+
+
 class TestThresholds2005:
     """INTERP-2005 Table 12 year-to-year limits."""
 

@@ -22,6 +22,8 @@ import re
 from collections.abc import Mapping
 from typing import Any
 
+from pftwork.case_model import parameter_label
+
 __all__ = [
     "STEP_TABLES",
     "display_text",
@@ -143,7 +145,7 @@ def value_rows(values: Mapping[str, Any], step_id: str) -> list[list[str]]:
             item = entries.get(name)
             if not isinstance(item, Mapping) or item.get("measured") is None:
                 continue
-            label = f"{name} {_BLOCK_LABEL.get(block, '')}".strip()
+            label = f"{parameter_label(name)} {_BLOCK_LABEL.get(block, '')}".strip()
             unit = item.get("unit") or ""
             digits = 2
             rows.append([label, _fmt(item.get("measured"), digits), str(unit),

@@ -24,13 +24,17 @@ TITLE = "Change over time"
 SOURCE = ("INTERP-2005 (Pellegrino et al., ERJ 2005) Table 12: significant year-to-year change "
           "FEV1 >= 15 %, FVC >= 15 %, DLCO > 10 %, week-to-week (healthy) FEV1 >= 12 %, FVC >= 11 %, "
           "DLCO > 6 mL/min/mmHg; INTERP-2022: conditional change score (children) and FEV1Q "
-          "(adults); FEV1 slope by least squares (common practice)")
+          "(adults); FEV1 slope by least squares compared with the decline of the predicted value "
+          "(our own) and with 40 mL/year (common practice, from memory)")
 RULE = ("The current test is compared with the most recent earlier one: absolute change, "
         "% change from the earlier value, change in z and in % predicted. The INTERP-2005 "
         "year-to-year limits apply when the interval is at least half a year (our own cut), the "
         "week-to-week limits otherwise. Children (under 18 at the earlier test, our own cut) get "
         "the FEV1 conditional change score (significant outside +/-1.96); adults get FEV1Q. "
-        "With three or more tests, the FEV1 slope is given in mL/year with its 95 % CI.")
+        "With three or more tests, the FEV1 slope is given in mL/year with its 95 % CI and set "
+        "against the slope of the predicted FEV1 over the same ages (the decline expected from "
+        "ageing alone): a CI entirely below it is a decline beyond ageing; a loss faster than "
+        "40 mL/year is called rapid.")
 #: INTERP-2005 Table 12 (standards.md §3.6, VERIFIED [S16b]); DLCO "units" are mL/min/mmHg.
 THRESHOLDS_2005 = {"year": {"FEV1": ("pct_ge", 15.0), "FVC": ("pct_ge", 15.0),
                             "DLCO": ("pct_gt", 10.0)},
@@ -41,7 +45,11 @@ FEV1Q_DIVISOR = {"male": 0.5, "female": 0.4}
 #: Below this age at the earlier test, CCS is used (our own cut: GLI paediatric use).
 CHILD_AGE_LIMIT = 18.0
 _KEYS = ("compared_with", "interval_years", "significant", "direction", "ccs", "fev1q",
-         "fev1q_prior", "slope_ml_per_year", "slope_ci95", "n_tests", "changes")
+         "fev1q_prior", "slope_ml_per_year", "slope_ci95", "n_tests", "changes",
+         "expected_slope_ml_per_year", "excess_decline", "rapid_decline")
+#: FEV1 loss per year commonly called "rapid" in adult cohort studies (common practice, value
+#: from memory, e.g. COPD cohorts that split "rapid decliners" at 40 mL/year).
+RAPID_DECLINE_ML_PER_YEAR = 40.0
 
 
 def ccs(z1: float, z2: float, years: float, age1: float) -> tuple[float, float]:
@@ -231,3 +239,23 @@ def _slope(priors: list[tuple[HistoryEntry, dict[str, Any]]], values: dict[str, 
     data["slope_ml_per_year"], data["slope_ci95"] = slope, list(ci)
     parts.append(f"FEV1 slope over {len(points)} tests: {slope:+.0f} mL/year "
                  f"(95 % CI {ci[0]:+.0f} to {ci[1]:+.0f}).")
+    predicted = [(v["FEV1"]["age_years"], v["FEV1"].get("predicted")) for _, v in priors
+                 if "FEV1" in v]
+    predicted.append((age_now, value(values, "pre", "FEV1", "predicted")))
+    if any(p is None for _, p in predicted):
+        return
+    expected, _ = fev1_slope([a for a, _ in predicted], [p for _, p in predicted])
+    data["expected_slope_ml_per_year"] = expected
+    data["excess_decline"] = ci[1] < expected
+    data["rapid_decline"] = slope < -RAPID_DECLINE_ML_PER_YEAR
+    text = f"Ageing alone (predicted FEV1) accounts for {expected:+.0f} mL/year"
+    if data["excess_decline"]:
+        text += ("; the measured decline is beyond that"
+                 + (" and rapid (> 40 mL/year, common practice)" if data["rapid_decline"]
+                    else ""))
+        data["direction"] = "decline"
+    elif data["rapid_decline"]:
+        text += ("; the slope's point estimate is a rapid decline (> 40 mL/year, common "
+                 "practice) but its interval is too wide to tell it from ageing: repeat testing "
+                 "narrows it")
+    parts.append(text + ".")

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 from typing import Any
 
+from pftwork.case_model import parameter_label
+
 __all__ = ["render_text"]
 
 _BLOCK_TITLES = (("pre", "Spirometry, pre-bronchodilator"), ("post", "Spirometry, post-bronchodilator"),
@@ -35,7 +37,7 @@ def _row(param: str, item: dict[str, Any]) -> str:
         pct = _num(item.get("percent_predicted"), ".0f")
     flag = " *" if item.get("extrapolated") else ""
     unit = item.get("unit") or ""
-    line = (f"  {param:<12}{_num(item.get('measured'), fmt):>9}  {lln:>12}  {z:>14}  {pct:>9}"
+    line = (f"  {parameter_label(param):<12}{_num(item.get('measured'), fmt):>9}  {lln:>12}  {z:>14}  {pct:>9}"
             f"  {unit}{flag}")
     adj = item.get("adjusted")
     if adj:

@@ -18,6 +18,7 @@ from typing import Any
 
 import plotly.graph_objects as go
 
+from pftwork.case_model import parameter_label
 from pftwork.ui.style import COLORS, FONT, SYMBOLS
 
 __all__ = [
@@ -97,7 +98,7 @@ def _clip(z: float) -> float:
 
 
 def _label(param: str) -> str:
-    return param.replace("_", "").replace("FEV075", "FEV0.75").replace("FEV05", "FEV0.5")
+    return parameter_label(param)
 
 
 def zscore_rows(values: Mapping[str, Mapping[str, Mapping[str, Any]]]) -> list[dict[str, Any]]:

@@ -13,6 +13,7 @@ import math
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
+from pftwork.case_model import parameter_label
 from pftwork.ui.style import COLORS
 
 __all__ = [
@@ -111,7 +112,7 @@ def values_table_html(values: Mapping[str, Mapping[str, Mapping[str, Any]]],
             item = items.get(param)
             if not item:
                 continue
-            label = esc(param.replace("_", "")) + (
+            label = esc(parameter_label(param)) + (
                 f' <span class="pft-meta">{_BLOCK_NAMES[block]}</span>'
                 if _BLOCK_NAMES.get(block) else "")
             rows.append(_value_row(label, item))

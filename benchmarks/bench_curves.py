@@ -15,8 +15,14 @@ import argparse
 import statistics
 import time
 
-from pftwork.quality.curves import analyse_curve
+from pftwork.quality import curves
 from pftwork.quality.synthetic import synthetic_manoeuvre
+
+
+def analyse_curve(curve):
+    """The full analysis every time: the cache of recent results is emptied first."""
+    curves._RECENT.clear()
+    return curves.analyse_curve(curve)
 
 
 def _pool(size: int = 50) -> list:

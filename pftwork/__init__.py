@@ -8,6 +8,7 @@ Public API (imported lazily so that computation never pulls in widgets or plotti
     load_case(path_or_dict) -> Case              # validated case, SI units
     reference_values(set_id, parameter, ...)     # GLI predicted / LLN / ULN / z, vectorised
     interpret(case) -> Interpretation            # the step chain and the summary
+    interpret_table(dataframe) -> DataFrame      # the same for a table of tests, vectorised
     Worksheet(case)                              # the ipywidgets worksheet
     WorksheetRecord                              # the worksheet's state, without widgets
     export_notebook(record, path)                # the auditable notebook
@@ -33,6 +34,7 @@ __all__ = [
     "demo_cases",
     "export_notebook",
     "interpret",
+    "interpret_table",
     "load_case",
     "reference_values",
     "verify_notebook",
@@ -45,6 +47,7 @@ _LAZY = {
     "Worksheet": ("pftwork.ui.widget_worksheet", "Worksheet"),
     "WorksheetRecord": ("pftwork.worksheet.record", "WorksheetRecord"),
     "export_notebook": ("pftwork.export.notebook", "export_notebook"),
+    "interpret_table": ("pftwork.batch", "interpret_table"),
     "verify_notebook": ("pftwork.export.verify", "verify_notebook"),
     "CaseError": ("pftwork.errors", "CaseError"),
     "PftworkError": ("pftwork.errors", "PftworkError"),

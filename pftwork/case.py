@@ -487,11 +487,14 @@ def _copy_json(value: Any) -> Any:
     if isinstance(value, Mapping):
         return {k: _copy_json(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
+        if set(map(type, value)) <= _FAST:  # a flat list of numbers or text (raw curves)
+            return list(value)
         return [v if isinstance(v, _SCALARS) else _copy_json(v) for v in value]
     return copy.deepcopy(value) if not isinstance(value, _SCALARS) else value
 
 
 _SCALARS = (int, float, str, bool, type(None))
+_FAST = frozenset(_SCALARS)
 
 
 # -- small validators (one message template) ------------------------------------------------

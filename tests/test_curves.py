@@ -280,3 +280,25 @@ class TestRejection:
             analyse_curve(m.curve, field="spirometry.post.trials[2].curve")
 
         assert info.value.field == "spirometry.post.trials[2].curve.time_s"
+
+
+class TestRecentResults:
+    """analyse_curve reuses the result for identical samples (a pure function; our own cache)."""
+
+    def test_same_samples_same_result(self):
+        """Equal samples (even in new arrays) give the very same frozen result object."""
+        m = synthetic_manoeuvre(rate_hz=500.0, seed=3)
+        copy = Curve(m.curve.time_s.copy(), m.curve.volume_l.copy())
+
+        assert analyse_curve(m.curve) is analyse_curve(copy)
+
+    def test_changed_samples_recomputed(self):
+        """A changed sample gives a fresh analysis with the changed value."""
+        m = synthetic_manoeuvre(rate_hz=500.0, seed=4)
+        first = analyse_curve(m.curve)
+        volume = m.curve.volume_l.copy()
+        volume[volume.argmax():] += 0.05  # 50 mL more at the end of expiration
+        second = analyse_curve(Curve(m.curve.time_s, volume))
+
+        assert second is not first
+        assert pytest.approx(first.FVC + 0.05, abs=0.01) == second.FVC

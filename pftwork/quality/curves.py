@@ -30,6 +30,7 @@ Definitions (SPIRO-2019 unless marked *our own*):
 
 from __future__ import annotations
 
+import hashlib
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -162,7 +163,7 @@ class CurveAnalysis:
 
 
 def analyse_curve(curve: Curve, field: str = "spirometry.pre.trials[0].curve") -> CurveAnalysis:
-    """Analyse one raw forced manoeuvre.
+    """Analyse one raw forced manoeuvre (results of recent curves are reused: see Notes).
 
     Parameters
     ----------
@@ -180,7 +181,30 @@ def analyse_curve(curve: Curve, field: str = "spirometry.pre.trials[0].curve") -
     ------
     CurveError
         When the samples cannot be a forced manoeuvre in litres (see :func:`_validated`).
+
+    Notes
+    -----
+    The analysis is a pure function of the samples, so the last results are kept keyed by a
+    digest of the samples and ``field``: a worksheet that re-interprets the case after every edit
+    does not re-analyse unchanged curves. :class:`CurveAnalysis` is frozen, so sharing is safe.
     """
+    key = (hashlib.blake2b(np.ascontiguousarray(curve.time_s, dtype=np.float64).tobytes()
+                           + np.ascontiguousarray(curve.volume_l, dtype=np.float64).tobytes(),
+                           digest_size=16).digest(), field)
+    hit = _RECENT.get(key)
+    if hit is None:
+        hit = _analyse(curve, field)
+        _RECENT[key] = hit
+        while len(_RECENT) > _RECENT_SIZE:
+            _RECENT.pop(next(iter(_RECENT)))
+    return hit
+
+
+_RECENT: dict[tuple[bytes, str], CurveAnalysis] = {}
+_RECENT_SIZE = 64
+
+
+def _analyse(curve: Curve, field: str) -> CurveAnalysis:
     t, v, rate = _validated(curve, field)
     window = max(5, int(round(_SMOOTH_WINDOW_S * rate)) | 1)
     vs = _smooth(v, window, 0, 1.0, 2)

@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import Any
 
 from ._version import __version__
+from .interpret import interpret  # eager: the subpackage of the same name would shadow a lazy one
 
 __all__ = [
     "__version__",
@@ -43,7 +44,6 @@ __all__ = [
 _LAZY = {
     "load_case": ("pftwork.case", "load_case"),
     "reference_values": ("pftwork.reference", "reference_values"),
-    "interpret": ("pftwork.interpret", "interpret"),
     "Worksheet": ("pftwork.ui.widget_worksheet", "Worksheet"),
     "WorksheetRecord": ("pftwork.worksheet.record", "WorksheetRecord"),
     "export_notebook": ("pftwork.export.notebook", "export_notebook"),

@@ -127,7 +127,7 @@ def build() -> dict[str, dict]:
                      "volumes and gas transfer; no symptoms.", "expected_pattern": "normal"},
         spirometry={"pre": {"trials": trials(rng, fev1, fvc, pef=10.1)}},
         volumes=volumes_block(sex, age, h, 0.3, 0.1, rng=rng),
-        diffusion=diffusion_block(sex, age, h, 0.1, 0.3, 15.1, rng))
+        diffusion=diffusion_block(sex, age, h, 0.1, 0.3, 15.1, rng, ivc=round(fvc * 0.96, 2)))
 
     # 2. Obstruction with a bronchodilator response: a choir singer with wheeze in cold air.
     rng = np.random.default_rng(2)
@@ -186,7 +186,7 @@ def build() -> dict[str, dict]:
                     "bronchodilator": {"agent": "salbutamol", "dose": "400 microgram",
                                        "minutes_after": 20}},
         volumes=vols,
-        diffusion=diffusion_block(sex, age, h, -2.2, -0.6, 14.2, rng),
+        diffusion=diffusion_block(sex, age, h, -2.2, -0.6, 14.2, rng, ivc=3.05),
         airway_resistance={"sRaw": 2.9, "unit": "kPa*s"},
         lab_reference={"sRaw": {"predicted": 0.9, "uln": 1.2, "source": "laboratory's own normal range"}},
         history=hist)
@@ -196,7 +196,7 @@ def build() -> dict[str, dict]:
     rng = np.random.default_rng(4)
     sex, age, h = "female", 46.2, 152.0
     fev1, fvc = spiro_values(sex, age, h, -2.6, -3.0)
-    dl = diffusion_block(sex, age, h, -1.4, -3.6, 13.1, rng)
+    dl = diffusion_block(sex, age, h, -1.4, -3.6, 13.1, rng, ivc=round(fvc * 0.96, 2))
     cases["restriction_chest_wall_bookbinder"] = case(
         "demo-cw-04", sex, age, h, 50.0, "2026-08-19", "scoliosis; exertional breathlessness",
         {"scenario": "Bookbinder with a long-standing thoracic scoliosis and breathlessness "
@@ -218,7 +218,7 @@ def build() -> dict[str, dict]:
          "expected_pattern": "restriction"},
         spirometry={"pre": {"trials": trials(rng, fev1, fvc, pef=5.2)}},
         volumes=volumes_block(sex, age, h, -1.9, 0.9, frc_frac=0.35, rng=rng),
-        diffusion=diffusion_block(sex, age, h, -1.2, -2.1, 14.9, rng))
+        diffusion=diffusion_block(sex, age, h, -1.2, -2.1, 14.9, rng, ivc=round(fvc * 0.96, 2)))
 
     # 6. Parenchymal restriction with low KCO.
     rng = np.random.default_rng(6)
@@ -232,7 +232,7 @@ def build() -> dict[str, dict]:
          "expected_pattern": "restriction"},
         spirometry={"pre": {"trials": trials(rng, fev1, fvc, pef=7.9)}},
         volumes=volumes_block(sex, age, h, -2.6, -1.9, rng=rng),
-        diffusion=diffusion_block(sex, age, h, -3.6, -2.4, 14.6, rng))
+        diffusion=diffusion_block(sex, age, h, -3.6, -2.4, 14.6, rng, ivc=round(fvc * 0.96, 2)))
 
     # 7. Mixed defect.
     rng = np.random.default_rng(7)
@@ -248,7 +248,7 @@ def build() -> dict[str, dict]:
                     "bronchodilator": {"agent": "salbutamol", "dose": "400 microgram",
                                        "minutes_after": 15}},
         volumes=volumes_block(sex, age, h, -2.2, -0.8, rng=rng),
-        diffusion=diffusion_block(sex, age, h, -1.0, -2.0, 13.6, rng))
+        diffusion=diffusion_block(sex, age, h, -1.0, -2.0, 13.6, rng, ivc=round(fvc * 0.96, 2)))
 
     # 8. Isolated low DLCO (normal spirometry and volumes, normal VA, low KCO).
     rng = np.random.default_rng(8)
@@ -262,7 +262,7 @@ def build() -> dict[str, dict]:
          "expected_pattern": "normal"},
         spirometry={"pre": {"trials": trials(rng, fev1, fvc, pef=6.4)}},
         volumes=volumes_block(sex, age, h, 0.1, 0.2, rng=rng),
-        diffusion=diffusion_block(sex, age, h, -2.6, -0.2, 12.9, rng, unit="traditional"))
+        diffusion=diffusion_block(sex, age, h, -2.6, -0.2, 12.9, rng, unit="traditional", ivc=round(fvc * 0.96, 2)))
 
     # 9. PRISm: preserved ratio, reduced FEV1 and FVC, no lung volumes.
     rng = np.random.default_rng(9)

@@ -51,3 +51,21 @@ def test_interpreting_a_case_loads_no_ui():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
 
     assert "" == out.stdout.strip()
+
+
+def test_interpret_stays_callable_after_subpackage_import():
+    """``pftwork.interpret`` is the function even after ``pftwork.interpret.*`` modules load.
+
+    (A regression: a lazily resolved attribute was shadowed by the subpackage of the same name,
+    so a notebook run a second time in one kernel failed.)
+    """
+    code = (
+        "import pftwork\n"
+        "case = pftwork.load_case(pftwork.data_path())\n"
+        "pftwork.interpret(case)\n"
+        "import pftwork.interpret.change\n"
+        "print(pftwork.interpret(case).summary['pattern'])\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+
+    assert "obstruction" == out.stdout.strip()

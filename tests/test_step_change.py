@@ -96,7 +96,7 @@ class TestDeclineBeyondAgeing:
         ages = [46.0, 47.0, 48.0, 49.0, 50.0]
         pred = reference_values("gli-global-2022", "FEV1", "female", ages, 165.0).predicted
         dates = ["2022-06-01", "2023-06-01", "2024-06-01", "2025-06-01"]
-        history = [(d, round(float(p) - 0.2, 3)) for d, p in zip(dates, pred[:4])]
+        history = [(d, round(float(p) - 0.2, 3)) for d, p in zip(dates, pred[:4], strict=True)]
         data = interpret(load_case(_case(round(float(pred[4]) - 0.2, 3), history))).step(
             "change").data
 

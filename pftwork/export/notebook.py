@@ -342,6 +342,7 @@ def export_notebook(record: Any, path: str | Path, *, execute: bool = True,
         if "pftwork" not in base.metadata:
             raise NotebookError(f"{path}: exists and is not a pftwork worksheet; not overwritten")
     nb = build_notebook(record, deidentify=deidentify, key=_pseudonym_key(), base=base)
+    path.parent.mkdir(parents=True, exist_ok=True)  # also the kernel's working folder
     if execute:
         _check_current(nb.metadata["pftwork"]["record"], path)
         try:
@@ -351,7 +352,6 @@ def export_notebook(record: Any, path: str | Path, *, execute: bool = True,
             raise NotebookError(f"{path}: executing the worksheet notebook failed "
                                 f"({type(exc).__name__}: {first[0][:300]}); is ipykernel "
                                 "installed in this Python?") from exc
-    path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(path.name + ".tmp")
     nbformat.write(nb, str(tmp))
     os.replace(tmp, path)

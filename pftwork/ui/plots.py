@@ -278,8 +278,10 @@ def flow_volume_figure(curves: Mapping[str, CurveSet],
             hovertext=[f"FEF{pct} {f:.2f} L/s" for pct, f in fef], hoverinfo="text"))
         knee = getattr(cs.shape, "knee", None) if cs.shape is not None else None
         if knee is not None and knee.present:
-            fig.add_trace(go.Scatter(
-                x=[knee.volume_l], y=[knee.flow_l_s], mode="markers+text", text=["knee"],
+            labelled = not any(tr.name and tr.name.startswith("knee") for tr in fig.data)
+            fig.add_trace(go.Scatter(  # one text label only: pre and post knees often overlap
+                x=[knee.volume_l], y=[knee.flow_l_s],
+                mode="markers+text" if labelled else "markers", text=["knee"],
                 textposition="top right", showlegend=False, name=f"knee {_PHASES[phase]}",
                 marker={"symbol": SYMBOLS["knee"], "size": 13, "color": COLORS["knee"],
                         "line": {"width": 2, "color": COLORS["knee"]}},

@@ -49,7 +49,9 @@ def figure_output(fig: go.Figure, css: str = "pft-plot") -> widgets.Output:
 def show_figure(out: widgets.Output, fig: go.Figure) -> None:
     """Replace the content of ``out`` with ``fig`` (plain JSON; deterministic text/plain)."""
     spec = json.loads(pio.to_json(fig, validate=False))
-    spec["config"] = {"displaylogo": False, "responsive": True,
+    # Fixed-size figures: plotly's "responsive" mode measures the widget's container, which
+    # JupyterLab can report as 0 px high during a resize (the chart then collapses).
+    spec["config"] = {"displaylogo": False,
                       "modeBarButtonsToRemove": ["lasso2d", "select2d"]}
     title = (fig.layout.title.text or "figure") if fig.layout.title else "figure"
     out.outputs = ({"output_type": "display_data", "metadata": {},
@@ -405,7 +407,9 @@ class Worksheet(widgets.VBox):
 
     def _draw_plots(self) -> None:
         rec = self.record
-        show_figure(self.overview, plots.zscore_figure(rec.interpretation.get("values") or {}))
+        overview = plots.zscore_figure(rec.interpretation.get("values") or {})
+        overview.update_layout(width=900)
+        show_figure(self.overview, overview)
         case = _case_or_none(rec)
         by_step: dict[str, list[widgets.Output]] = {}
         if case is not None:
@@ -431,7 +435,7 @@ class Worksheet(widgets.VBox):
         figs = ([plots.flow_volume_figure(curves), plots.volume_time_figure(curves)]
                 if curves else [])
         for fig in figs:
-            fig.update_layout(width=520)
+            fig.update_layout(width=440)
         outputs = [figure_output(f) for f in figs]
         self._curve_cache = (key, outputs)
         return outputs

@@ -235,8 +235,9 @@ def _merge_findings(by_sex: dict[str, Finding]) -> Finding:
     if m.conclusion == f.conclusion:
         conclusion = m.conclusion
     else:
-        conclusion = (f"Same conclusion under male and female equations — male: {m.conclusion} "
-                      f"Female: {f.conclusion}" if same else
+        conclusion = (f"Same classification ({m.status}) under male and female equations; the "
+                      f"details differ — male equations: {m.conclusion} "
+                      f"Female equations: {f.conclusion}" if same else
                       f"The conclusion depends on the sex used — male equations: "
                       f"{m.conclusion} Female equations: {f.conclusion}")
     return Finding(m.id, m.title, conclusion, m.status if same else "sex_dependent",

@@ -120,8 +120,8 @@ class TestCanonicalHashing:
 
 class TestBuildNotebook:
     def test_layout_and_ids(self, notebook):
-        """Header, record cell, a markdown + check cell per step, sign-off and seal cells."""
-        expected = ["pftwork-header", "pftwork-record"]
+        """Header, record and chart cells, a markdown + check cell per step, sign-off and seal."""
+        expected = ["pftwork-header", "pftwork-record", "pftwork-zchart"]
         for sid in STEP_IDS:
             expected += [f"pftwork-step-{sid}", f"pftwork-check-{sid}"]
         expected += ["pftwork-signoff", "pftwork-seal"]
@@ -147,7 +147,7 @@ class TestBuildNotebook:
 
     def test_record_cell_holds_one_literal_equal_to_metadata(self, notebook):
         """The record cell's single string literal decodes to exactly the metadata record."""
-        source = notebook.cells[1].source
+        source = next(c.source for c in notebook.cells if c.id == "pftwork-record")
         calls = [n for n in ast.walk(ast.parse(source)) if isinstance(n, ast.Call)]
         literal = ast.literal_eval(calls[0].args[0])
         assert json.loads(literal) == json.loads(canonical_json(notebook.metadata["pftwork"]["record"]))
@@ -202,6 +202,17 @@ class TestBuildNotebook:
         assert record.is_complete() and REVIEWER == record.signoff["reviewer"]
 
 
+def test_chart_refuses_values_that_differ_from_the_recomputation(notebook):
+    """The chart cell raises (as the check cells do) when a recorded z differs from the
+    recomputation, instead of drawing values other than the recorded ones."""
+    from pftwork.export.audit import AuditError, show_zscore_chart
+
+    export = copy.deepcopy(notebook.metadata["pftwork"]["record"])
+    export["interpretation"]["values"]["pre"]["FEV1"]["z"] = 0.5
+    with pytest.raises(AuditError, match=r"values\.pre\.FEV1\.z"):
+        show_zscore_chart(export)
+
+
 class TestReExport:
     def test_export_twice_same_cell_count_and_user_cells_kept(self, tmp_path, record):
         """Re-exporting replaces generated cells (same count) and keeps a person's own cell."""
@@ -243,6 +254,30 @@ class TestExecutedExport:
         assert f"{result.values['pre']['FEV1']['z']:.2f}" in text
         assert result.step("airflow").conclusion in text
         assert "equals the recomputation" in text
+
+    def test_chart_cell_stores_the_zscore_svg(self, executed):
+        """The chart cell stores one image/svg+xml output (REPORT-2017 z-score graphic) whose
+        markers carry the z-scores interpret() computes, plus a text summary of them."""
+        import xml.etree.ElementTree as ET
+
+        nb = nbformat.read(executed, as_version=4)
+        outputs = next(c for c in nb.cells if c.id == "pftwork-zchart").outputs
+        assert ["display_data"] == [o.output_type for o in outputs]
+        root = ET.fromstring(outputs[0].data["image/svg+xml"])
+        marks = {g.get("data-z") for g in root.iter("{http://www.w3.org/2000/svg}g")
+                 if "pft-zmark" in (g.get("class") or "")}
+        values = interpret(invented_case()).values
+        assert f"{values['pre']['FEV1']['z']:+.2f}" in marks
+        assert f"{values['diffusion']['DLCO']['z']:+.2f}" in marks
+        assert f"FEV1 {values['pre']['FEV1']['z']:+.2f} pre-BD" in outputs[0].data["text/plain"]
+
+    def test_chart_output_equals_the_pure_bundle(self, executed):
+        """The stored output is exactly audit.zscore_chart_bundle of the embedded record."""
+        from pftwork.export.audit import zscore_chart_bundle
+
+        nb = nbformat.read(executed, as_version=4)
+        data = next(c for c in nb.cells if c.id == "pftwork-zchart").outputs[0].data
+        assert zscore_chart_bundle(nb.metadata["pftwork"]["record"]) == dict(data)
 
     def test_no_widget_state_stored(self, executed):
         """Executed with store_widget_state=False: no widget state in the metadata."""

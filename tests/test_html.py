@@ -68,6 +68,35 @@ class TestSelfContained:
         assert "Reason for the amendment: History of 40 pack-years" in text
 
 
+class TestZscoreGraphics:
+    """REPORT-2017 (Culver et al., AJRCCM 2017) asks for a z-score graphic beside the values."""
+
+    def test_chart_after_header_table_before_steps(self, page):
+        """One inline z-score chart (role="img") sits between the header table and step 1."""
+        charts = [a for t, a in _parse(page).tags if t == "svg" and a.get("class") == "pft-zchart"]
+        assert 1 == len(charts) and "img" == charts[0]["role"]
+        assert page.index('class="facts"') < page.index("pft-zchart") < page.index("<section")
+
+    def test_chart_summarises_the_recorded_values(self, page):
+        """The chart's text alternative gives the FEV1 z-scores interpret() computes."""
+        from pftwork.interpret import interpret
+
+        values = interpret(invented_case()).values
+        label = next(a["aria-label"] for t, a in _parse(page).tags
+                     if t == "svg" and a.get("class") == "pft-zchart")
+        assert (f"FEV1 {values['pre']['FEV1']['z']:+.2f} pre-BD, "
+                f"{values['post']['FEV1']['z']:+.2f} post-BD") in label
+
+    def test_glyph_column_in_each_value_table(self, page):
+        """Each row of a step's value table ends with a z-score glyph (airflow: FEV1, FVC,
+        FEV1/FVC with z; PEF has none here, so its glyph cell is empty)."""
+        airflow = page[page.index('id="step-airflow"'):]
+        table = airflow[:airflow.index("</table>")]
+        assert table.count("<tr>") - 1 == table.count('<td class="glyph">')
+        assert 3 == table.count('class="pft-zglyph"')
+        assert "z -5 … +3" in table
+
+
 def test_html_from_notebook_has_the_notebook_chain_head(tmp_path):
     """Written from an exported notebook, the page carries that notebook's chain head."""
     nb_path = export_notebook(reviewed_record(), tmp_path / "ws.ipynb", execute=False)

@@ -93,11 +93,11 @@ def test_payloads_round_trip_as_data(notebook, marker):
 
 
 def test_other_code_cells_contain_no_user_text(notebook):
-    """Check cells are fixed templates naming only a step id."""
+    """Check and chart cells are fixed templates naming only a step id."""
     sources = [c.source for c in notebook.cells if c.cell_type == "code"][1:]
     for src in sources:
-        assert re.fullmatch(r"audit\.(recompute_step\(RECORD, '[a-z_]+'\)|check_seal\(RECORD\))",
-                            src)
+        assert re.fullmatch(r"audit\.(recompute_step\(RECORD, '[a-z_]+'\)|check_seal\(RECORD\)"
+                            r"|show_zscore_chart\(RECORD\))", src)
 
 
 def test_markdown_neutralised(notebook):

@@ -159,6 +159,23 @@ def test_edited_stored_output_is_caught_on_reexecution(exported, tmp_path):
                                                          report.step("volumes").problems]
 
 
+@pytest.mark.kernel
+def test_edited_chart_output_is_caught_on_reexecution(exported, tmp_path):
+    """A z-score chart whose stored SVG was edited (a marker moved) is named by verify (kernel)."""
+    nb = nbformat.read(exported, as_version=4)
+    cell = next(c for c in nb.cells if c.id == "pftwork-zchart")
+    svg = cell.outputs[0]["data"]["image/svg+xml"]
+    edited = svg.replace('data-z="', 'data-z="9', 1)
+    assert edited != svg
+    cell.outputs[0]["data"]["image/svg+xml"] = edited
+    nbformat.write(nb, tmp_path / "chart.ipynb")
+    report = verify_notebook(tmp_path / "chart.ipynb", execute=True)
+    assert 1 == report.exit_code and report.executed
+    assert [("record", "output of cell pftwork-zchart")] == [(p.where, p.field)
+                                                              for p in report.problems]
+    assert "image/svg+xml" in report.problems[0].message
+
+
 def _nbval(path: Path) -> subprocess.CompletedProcess:
     cmd = [sys.executable, "-m", "pytest", "--nbval", str(path), "--nbval-sanitize-with",
            str(SANITIZE), "-p", "no:cacheprovider", "-q"]

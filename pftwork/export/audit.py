@@ -1,9 +1,10 @@
 """The small runtime API that the code cells of an exported worksheet call.
 
-A generated notebook has one record cell and one check cell per step::
+A generated notebook has one record cell, one chart cell and one check cell per step::
 
     from pftwork.export import audit
     RECORD = audit.load_record('{"format": "pftwork-export-record/1", ...}')   # one literal
+    audit.show_zscore_chart(RECORD)
     audit.recompute_step(RECORD, "airflow")
     audit.check_seal(RECORD)
 
@@ -23,12 +24,16 @@ from typing import Any
 
 from pftwork._version import __version__
 from pftwork.errors import PftworkError
+from pftwork.zgraphic import chart_summary, zscore_chart_svg
 
 from .chain import chain_problems
 from .document import Difference, fresh_interpretation, recomputation_differences
 from .render import VALUE_COLUMNS, plain_text, value_rows
 
-__all__ = ["AuditError", "AuditRecord", "check_seal", "load_record", "recompute_step"]
+_CHART_TITLE = "z-scores against the reference equations"
+
+__all__ = ["AuditError", "AuditRecord", "check_seal", "load_record", "recompute_step",
+           "show_zscore_chart", "zscore_chart_bundle"]
 
 
 class AuditError(PftworkError, AssertionError):
@@ -171,6 +176,50 @@ def recompute_step(record: AuditRecord | str | Mapping[str, Any], step_id: str) 
         print(lines)
         return
     raise AuditError(f"step {step_id}: the record differs from the recomputation:\n{lines}")
+
+
+def zscore_chart_bundle(record: AuditRecord | str | Mapping[str, Any]) -> dict[str, str]:
+    """The z-score chart of the recomputed values as a display bundle (pure; no display).
+
+    Returns
+    -------
+    dict
+        ``{"image/svg+xml": <svg ...>, "text/plain": summary}``: the SVG of
+        :func:`pftwork.zgraphic.zscore_chart_svg` for the values recomputed from the embedded
+        case, and a one-paragraph text listing the same z-scores (what a reader without images,
+        nbval and verification see as plain text).
+    """
+    record = _as_record(record)
+    values = record.fresh.get("values") or {}
+    return {"image/svg+xml": zscore_chart_svg(values, title=_CHART_TITLE),
+            "text/plain": f"{_CHART_TITLE} (recomputed from the embedded case). "
+                          + chart_summary(values)}
+
+
+def show_zscore_chart(record: AuditRecord | str | Mapping[str, Any]) -> None:
+    """Display the z-score chart (REPORT-2017) of the values recomputed from the embedded case.
+
+    The output is one ``display_data`` with ``image/svg+xml`` and a ``text/plain`` summary,
+    deterministic for a given record, so nbval and ``pftwork verify`` compare it.
+
+    Raises
+    ------
+    AuditError
+        When the recorded values differ from the recomputation (same pftwork version): the chart
+        would not show what was recorded.
+    """
+    record = _as_record(record)
+    diffs = [d for d in record.differences
+             if d.step == "interpretation" and d.field.startswith("values")]
+    if diffs and record.same_version:
+        raise AuditError("the recorded values differ from the recomputation the chart shows:\n"
+                         + "\n".join(f"  {d}" for d in diffs[:10]))
+    if diffs:
+        print(f"Note: {len(diffs)} recorded value(s) differ from this recomputation, attributed "
+              f"to the version change (recorded with pftwork {record.recorded_version}).")
+    from IPython.display import display
+
+    display(zscore_chart_bundle(record), raw=True)
 
 
 def check_seal(record: AuditRecord | str | Mapping[str, Any]) -> None:

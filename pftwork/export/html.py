@@ -4,7 +4,9 @@ One file, no script, no external resource (no CDN, fonts or images): inline CSS 
 Content-Security-Policy meta tag that forbids everything else. Every text from the record is
 HTML-escaped. The page shows the cautions, the case, each step (conclusion in force, decision,
 amendment and reason, value table, rule, source, caveats, notes) and the record chain head of
-the same export record a notebook would embed. :func:`render_html` is pure; :func:`write_html`
+the same export record a notebook would embed, with the z-score chart of
+:mod:`pftwork.zgraphic` under the header and a z-score glyph in each value table (inline SVG:
+no script, allowed by the policy). :func:`render_html` is pure; :func:`write_html`
 writes the file.
 """
 
@@ -14,6 +16,8 @@ import os
 from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
+
+from pftwork.zgraphic import GLYPH_AXIS, zscore_chart_svg, zscore_glyph_svg
 
 from .document import build_export_record
 from .render import VALUE_COLUMNS, header_view, html_text, step_view
@@ -35,16 +39,25 @@ table.facts td{text-align:left}
 .amended{background:#eef4ff;padding:.3rem .6rem}
 .hash{font-family:ui-monospace,monospace;font-size:.8rem;word-break:break-all}
 .small{font-size:.85rem;color:#4a5868}
+.zchart{margin:.8rem 0}.zchart svg{max-width:100%;height:auto}
+td.glyph{padding:0 .3rem;vertical-align:middle}td.glyph svg{display:block}
 """
 _CSP = "default-src 'none'; style-src 'unsafe-inline'"
+_GLYPH_HEADING = f"z {GLYPH_AXIS[0]:+.0f} … {GLYPH_AXIS[1]:+.0f}"
 
 
-def _table(head: list[str], rows: list[list[str]], css: str = "") -> str:
+def _table(head: list[str], rows: list[list[str]], css: str = "",
+           graphics: list[str] | None = None) -> str:
+    """A table of escaped texts; ``graphics`` (SVG built by pftwork.zgraphic) is a last column."""
     cls = f' class="{css}"' if css else ""
     out = [f"<table{cls}>"]
     if head:
         out.append("<tr>" + "".join(f"<th>{html_text(h)}</th>" for h in head) + "</tr>")
-    out += ["<tr>" + "".join(f"<td>{html_text(c)}</td>" for c in row) + "</tr>" for row in rows]
+    for i, row in enumerate(rows):
+        cells = "".join(f"<td>{html_text(c)}</td>" for c in row)
+        if graphics is not None:
+            cells += f'<td class="glyph">{graphics[i]}</td>'
+        out.append(f"<tr>{cells}</tr>")
     out.append("</table>")
     return "".join(out)
 
@@ -60,7 +73,8 @@ def _step(export: Mapping[str, Any], index: int) -> str:
                      f'{html_text(v["engine_conclusion"])}</p><p>Reason for the amendment: '
                      f'{html_text(v["reason"])}</p></div>')
     if v["rows"]:
-        parts.append(_table(VALUE_COLUMNS, v["rows"]))
+        glyphs = [zscore_glyph_svg(z) if z is not None else "" for z in v["zs"]]
+        parts.append(_table([*VALUE_COLUMNS, _GLYPH_HEADING], v["rows"], graphics=glyphs))
     parts.append(f"<p><b>Rule:</b> {html_text(v['rule'])}</p>")
     parts.append(f"<p><b>Source:</b> {html_text(v['source'])}</p>")
     if v["caveats"]:
@@ -99,6 +113,7 @@ def html_from_record(export: Mapping[str, Any], *, title: str | None = None) -> 
             text += " Age 90 or older is recorded as 90; reference values are computed at 90."
         deid = f'<p class="caution">{html_text(text)}</p>'
     steps = "".join(_step(export, i) for i in range(len(export.get("steps") or [])))
+    values = (export.get("interpretation") or {}).get("values") or {}
     page_title = html_text(title or f"PFT worksheet {h['case_id']}")
     return (
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
@@ -108,6 +123,7 @@ def html_from_record(export: Mapping[str, Any], *, title: str | None = None) -> 
         "<h1>Pulmonary function worksheet</h1>"
         f'<div class="caution"><b>Cautions</b><ul>{cautions}</ul></div>'
         f"{deid}{_table([], rows, 'facts')}"
+        f'<div class="zchart">{zscore_chart_svg(values, standalone=False)}</div>'
         f'<p class="small">Record chain head (SHA-256): <span class="hash">{html_text(h["head"])}'
         "</span>. The auditable notebook of the same export carries this head; "
         "<code>pftwork verify</code> re-checks it.</p>"

@@ -12,6 +12,9 @@ cell id                type        content
 ``pftwork-record``     code        ``RECORD = audit.load_record('<JSON>')`` — the whole
                                    export record as ONE string literal (``repr`` of the
                                    canonical JSON text); prints the chain check and case
+``pftwork-zchart``     code        ``audit.show_zscore_chart(RECORD)``: the z-score chart
+                                   (REPORT-2017) of the values recomputed from the
+                                   embedded case, an ``image/svg+xml`` output
 ``pftwork-step-<id>``  markdown    conclusion in force, decision, amendment and reason,
                                    value table (measured, LLN, z, % predicted), rule,
                                    source, caveats, evidence, notes, earlier decisions
@@ -23,6 +26,13 @@ cell id                type        content
 The tool's metadata lives in ``nb.metadata["pftwork"]`` (``format``, ``pftwork_version``,
 ``chain_head``, ``deidentified``, ``record``). Exporting again to the same path replaces the
 generated cells and keeps any cell a person added (after the generated ones).
+
+The step markdown tables carry no z-score glyph column: JupyterLab 4.6's markdown sanitizer
+(the allow-list bundled in ``jupyterlab/static``) has no ``svg`` element, so inline SVG in a
+markdown cell would be stripped; the chart is a code-cell output instead, which verification
+compares. JupyterLab renders ``image/svg+xml`` only for trusted outputs (its SVG renderer is not
+"safe"), so an exported notebook opened as is shows the output's ``text/plain`` summary until the
+cell is run or the notebook trusted; nbconvert's HTML shows the image.
 
 Execution uses the *running* Python interpreter as the kernel (``ipykernel`` must be installed;
 no kernelspec needs to be registered), with ``store_widget_state=False``.
@@ -106,6 +116,9 @@ def _header_markdown(export: Mapping[str, Any]) -> str:
     parts.append("How to check this record: run every cell (each step is recomputed from the "
                  "embedded case and compared with what was recorded; any edit breaks the record "
                  "chain), or run <code>pftwork verify</code> on this file.")
+    parts.append("The z-score chart (below the record cell) is an SVG image: Jupyter front ends "
+                 "show it once the notebook is trusted or that cell has been run, and its text "
+                 "summary until then.")
     return "\n\n".join(p for p in parts if p)
 
 
@@ -172,7 +185,9 @@ def notebook_from_record(export: Mapping[str, Any]) -> NotebookNode:
     export = json.loads(canonical_json(export))
     cells = [new_markdown_cell(_header_markdown(export), id="pftwork-header",
                                metadata=_meta("header")),
-             new_code_cell(_record_source(export), id="pftwork-record", metadata=_meta("record"))]
+             new_code_cell(_record_source(export), id="pftwork-record", metadata=_meta("record")),
+             new_code_cell("audit.show_zscore_chart(RECORD)", id="pftwork-zchart",
+                           metadata=_meta("chart"))]
     for i, step in enumerate(export.get("steps") or []):
         sid = str(step.get("id"))
         cells.append(new_markdown_cell(_step_markdown(export, i), id=f"pftwork-step-{sid}",

@@ -23,6 +23,7 @@ from collections.abc import Mapping
 from typing import Any
 
 from pftwork.case_model import parameter_label
+from pftwork.zgraphic import parameter_rank
 
 __all__ = [
     "STEP_TABLES",
@@ -34,6 +35,7 @@ __all__ = [
     "plain_text",
     "step_view",
     "value_rows",
+    "value_zs",
 ]
 
 #: Which blocks of the values document each step's table shows (``None``: every parameter).
@@ -132,36 +134,36 @@ def _fmt(value: Any, digits: int = 2) -> str:
     return str(value)
 
 
+def _value_items(values: Mapping[str, Any], step_id: str) -> list[tuple[str, Mapping[str, Any]]]:
+    """``(label, item)`` of every parameter with a measured value in the step's table, in order."""
+    found = []
+    for block, params in STEP_TABLES.get(step_id, ()):
+        entries = values.get(block) or {}
+        for name in params or sorted(entries, key=parameter_rank):
+            item = entries.get(name)
+            if isinstance(item, Mapping) and item.get("measured") is not None:
+                found.append((f"{parameter_label(name)} {_BLOCK_LABEL.get(block, '')}".strip(),
+                              item))
+    return found
+
+
 def value_rows(values: Mapping[str, Any], step_id: str) -> list[list[str]]:
     """Rows ``[parameter, measured, unit, predicted, LLN, ULN, z, % predicted]`` for a step.
 
     Follows the column order recommended for reports by the ATS 2017 technical statement on a
     standardized pulmonary function report (measured beside LLN and z-score; % predicted last).
+    Parameters follow :data:`pftwork.zgraphic.PARAMETER_ORDER` (the chart's order).
     """
-    rows = []
-    for block, params in STEP_TABLES.get(step_id, ()):
-        entries = values.get(block) or {}
-        for name in params or sorted(entries, key=_param_rank):
-            item = entries.get(name)
-            if not isinstance(item, Mapping) or item.get("measured") is None:
-                continue
-            label = f"{parameter_label(name)} {_BLOCK_LABEL.get(block, '')}".strip()
-            unit = item.get("unit") or ""
-            digits = 2
-            rows.append([label, _fmt(item.get("measured"), digits), str(unit),
-                         _fmt(item.get("predicted"), digits), _fmt(item.get("lln"), digits),
-                         _fmt(item.get("uln"), digits), _fmt(item.get("z"), 2),
-                         _fmt(item.get("percent_predicted"), 0)])
-    return rows
+    return [[label, _fmt(item.get("measured")), str(item.get("unit") or ""),
+             _fmt(item.get("predicted")), _fmt(item.get("lln")), _fmt(item.get("uln")),
+             _fmt(item.get("z"), 2), _fmt(item.get("percent_predicted"), 0)]
+            for label, item in _value_items(values, step_id)]
 
 
-_PARAM_ORDER = ("FEV1", "FVC", "FEV1/FVC", "FEV6", "FEV0_75", "FEV0_75/FVC", "FEV0_5", "PEF",
-                "FEF25_75", "FEF75", "FEF25", "FEF50", "VC", "FIVC", "PIF", "FIF50", "TLC", "RV",
-                "RV/TLC", "FRC", "ERV", "IC", "DLCO", "KCO", "VA", "sRaw", "Raw")
-
-
-def _param_rank(name: str) -> tuple[int, str]:
-    return (_PARAM_ORDER.index(name) if name in _PARAM_ORDER else len(_PARAM_ORDER), name)
+def value_zs(values: Mapping[str, Any], step_id: str) -> list[float | None]:
+    """The z-score of each row of :func:`value_rows` (``None`` where there is none)."""
+    return [z if isinstance(z, (int, float)) and not isinstance(z, bool) else None
+            for z in (item.get("z") for _, item in _value_items(values, step_id))]
 
 
 #: Column headings of :func:`value_rows`.
@@ -220,6 +222,7 @@ def step_view(export: Mapping[str, Any], index: int) -> dict[str, Any]:
         "source": engine.get("source") or "",
         "caveats": [display_text(c, deid) for c in engine.get("caveats") or []],
         "rows": value_rows(values, str(step.get("id"))),
+        "zs": value_zs(values, str(step.get("id"))),
         "evidence": [(k, display_text(v, deid)) for k, v in evidence_items(engine.get("evidence"))],
         "notes": [(n.get("author") or "unnamed", display_time(n.get("time_utc"), deid),
                    display_text(n.get("text"), deid)) for n in step.get("notes") or []],

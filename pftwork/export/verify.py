@@ -14,8 +14,9 @@ what was recorded:
 5. **Generated cells** — the stored cells equal the cells regenerated from the record (a
    markdown conclusion edited by hand is caught here); deleted generated cells are named.
 6. **Re-execution** (``execute=True``) — the *regenerated* notebook runs in a fresh kernel;
-   errors and outputs that differ from the stored ones are named. Cells a person added are
-   never executed by verification (they are listed as not checked).
+   errors and outputs that differ from the stored ones are named (stream text, ``text/plain``
+   and the z-score chart's ``image/svg+xml``; see :data:`COMPARED_MIME_TYPES`). Cells a person
+   added are never executed by verification (they are listed as not checked).
 
 A notebook written by another pftwork **version** (same format) is not reported as tampered:
 the chain must still be intact, but recomputation differences, changed equation tables and
@@ -45,7 +46,7 @@ from .notebook import (
     read_notebook,
 )
 
-__all__ = ["Problem", "StepCheck", "VerifyReport", "verify_notebook"]
+__all__ = ["COMPARED_MIME_TYPES", "Problem", "StepCheck", "VerifyReport", "verify_notebook"]
 
 _EXIT = {"valid": 0, "mismatch": 1, "unreadable": 2}
 _FORMAT_RE = re.compile(r"^pftwork-notebook/(\d+)$")
@@ -338,6 +339,15 @@ def _check_cells(report: VerifyReport, nb: Any, fresh_nb: Any, step_ids: list[st
         report.problems.append(Problem("notebook", "cell order", "generated cells were reordered"))
 
 
+#: Output MIME types compared with the re-execution: plain text, and the z-score chart's SVG
+#: (deterministic text, see pftwork.zgraphic). Other types (widget views, HTML) are not compared.
+COMPARED_MIME_TYPES = ("text/plain", "image/svg+xml")
+
+
+def _mime_text(value: Any) -> str:
+    return "".join(value) if isinstance(value, list) else str(value)
+
+
 def _output_text(cell: Mapping[str, Any]) -> str:
     parts = []
     for out in cell.get("outputs") or []:
@@ -345,7 +355,9 @@ def _output_text(cell: Mapping[str, Any]) -> str:
         if kind == "stream":
             parts.append(str(out.get("text", "")))
         elif kind in ("execute_result", "display_data"):
-            parts.append(str((out.get("data") or {}).get("text/plain", "")))
+            data = out.get("data") or {}
+            parts += [f"{mime}: {_mime_text(data[mime])}\n" for mime in COMPARED_MIME_TYPES
+                      if mime in data]
         elif kind == "error":
             parts.append(f"{out.get('ename')}: {out.get('evalue')}")
     return "".join(parts)
@@ -389,7 +401,15 @@ def _check_execution(report: VerifyReport, nb: Any, fresh_nb: Any, step_ids: lis
 def _first_difference(a: str, b: str) -> str:
     for i, (x, y) in enumerate(zip(a.splitlines(), b.splitlines(), strict=False), start=1):
         if x != y:
-            return f"line {i}: stored {x.strip()[:80]!r}, re-executed {y.strip()[:80]!r}"
+            at = next((k for k, (p, q) in enumerate(zip(x, y, strict=False)) if p != q),
+                      min(len(x), len(y)))
+            start = max(0, at - 30) if at > 60 else 0  # long lines (SVG): show where they part
+            mime = next((m for m in COMPARED_MIME_TYPES if x.startswith(m + ": ")), None)
+            where = ", ".join(w for w in (mime, f"from character {start + 1}" if start else "")
+                              if w)
+            where = f" ({where})" if where else ""
+            return (f"line {i}{where}: stored {x[start:start + 80].strip()!r}, re-executed "
+                    f"{y[start:start + 80].strip()!r}")
     return f"stored {len(a.splitlines())} lines, re-executed {len(b.splitlines())} lines"
 
 

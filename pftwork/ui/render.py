@@ -3,7 +3,8 @@
 Every function takes plain data (the interpretation document, a step record as dict) and
 returns an HTML string styled by :mod:`pftwork.ui.style`. User and engine text is escaped.
 The evidence table follows the spirit of the ATS 2017 standardized report (Culver et al.,
-AJRCCM 2017;196:1463): measured value, LLN, z-score, % predicted, and a z-score graphic.
+AJRCCM 2017;196:1463): measured value, LLN, z-score, % predicted, and a z-score graphic
+(the glyph of :func:`pftwork.zgraphic.zscore_glyph_svg`, re-exported here as ``z_glyph_svg``).
 """
 
 from __future__ import annotations
@@ -14,7 +15,7 @@ from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
 from pftwork.case_model import parameter_label
-from pftwork.ui.style import COLORS
+from pftwork.zgraphic import zscore_glyph_svg as z_glyph_svg
 
 __all__ = [
     "STEP_BLOCKS",
@@ -39,7 +40,6 @@ STEP_BLOCKS: dict[str, tuple[tuple[str, tuple[str, ...] | None], ...]] = {
 }
 _BLOCK_NAMES = {"pre": "pre-BD", "post": "post-BD", "volumes": "", "diffusion": "",
                 "resistance": ""}
-_GLYPH = {"lo": -5.0, "hi": 3.0, "w": 132, "h": 16}
 
 
 def esc(text: Any) -> str:
@@ -62,34 +62,6 @@ def _sig(x: Any) -> str:
     if x is None or isinstance(x, bool) or not isinstance(x, (int, float)):
         return _num(x)
     return f"{x:.2f}" if abs(x) < 10 else f"{x:.1f}"
-
-
-def z_glyph_svg(z: float | None) -> str:
-    """A small inline SVG: the z-score as a dot on a scale with the normal band shaded.
-
-    The scale runs from z = −5 to +3; the band is −1.645 to +1.645 and the tick marks are at
-    z = 0, −2.5 and −4 (ERS/ATS 2022 severity cut-offs). Values beyond the scale sit at its
-    edge as an open dot.
-    """
-    lo, hi, w, h = _GLYPH["lo"], _GLYPH["hi"], _GLYPH["w"], _GLYPH["h"]
-
-    def x(v: float) -> float:
-        return round(4 + (min(max(v, lo), hi) - lo) / (hi - lo) * (w - 8), 1)
-
-    parts = [f'<svg class="pft-zglyph" width="{w}" height="{h}" viewBox="0 0 {w} {h}" '
-             f'role="img" aria-label="z-score {"" if z is None else f"{z:+.2f}"}">',
-             f'<rect x="{x(-1.645)}" y="3" width="{round(x(1.645) - x(-1.645), 1)}" height="10" '
-             f'fill="{COLORS["band"]}"/>',
-             f'<line x1="4" y1="8" x2="{w - 4}" y2="8" stroke="{COLORS["rule"]}"/>']
-    parts += [f'<line x1="{x(t)}" y1="4" x2="{x(t)}" y2="12" stroke="{COLORS["severity"]}"/>'
-              for t in (0.0, -2.5, -4.0)]
-    if z is not None and math.isfinite(z):
-        inside = lo <= z <= hi
-        fill = COLORS["pre"] if inside else "white"
-        parts.append(f'<circle cx="{x(z)}" cy="8" r="4" fill="{fill}" '
-                     f'stroke="{COLORS["pre"]}" stroke-width="1.5"/>')
-    parts.append("</svg>")
-    return "".join(parts)
 
 
 def _row_class(z: Any) -> str:

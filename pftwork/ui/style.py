@@ -7,21 +7,16 @@ status colours keep a text contrast ratio above 4.5:1 against their backgrounds.
 
 from __future__ import annotations
 
+from pftwork.zgraphic import COLORS as _ZCOLORS
+
 __all__ = ["COLORS", "CSS", "FONT", "STATUS_COLORS", "SYMBOLS", "css_block"]
 
 FONT = "'Source Sans 3', 'Segoe UI', 'Helvetica Neue', Arial, sans-serif"
 
 COLORS: dict[str, str] = {
-    "ink": "#1f2a36",
-    "muted": "#5b6b7b",
-    "rule": "#d5dde5",
+    **_ZCOLORS,              # ink, muted, rule, pre (current test), post (post-BD), band, …
     "panel": "#ffffff",
     "page": "#f5f7f9",
-    "pre": "#0b6e79",        # pre-bronchodilator / current test
-    "post": "#c2571a",       # post-bronchodilator
-    "band": "#dcefe9",       # normal range (-1.645 < z < +1.645)
-    "band_edge": "#8fb8ad",
-    "severity": "#b9c3cc",   # guide lines at z = -2.5 and -4
     "FEV1": "#0b6e79",
     "FVC": "#3f5fa8",
     "DLCO": "#8e3b76",

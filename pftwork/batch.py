@@ -322,8 +322,8 @@ class _Inputs:
             self.raw[col] = series.to_numpy(dtype=object)
         self.text = {c: _text_array(table[c]) if c in table.columns
                      else np.full(self.n, None, dtype=object) for c in _TEXT}
-        self.sex = np.array([s.lower() if isinstance(s, str) else s for s in self.text["sex"]],
-                            dtype=object)
+        self.sex = np.empty(self.n, dtype=object)  # filled, not np.array(): a list cell stays one cell
+        self.sex[:] = [s.lower() if isinstance(s, str) else s for s in self.text["sex"]]
 
     def cell(self, col: str, i: int) -> Any:
         """The value of one cell as the case loader should see it (None when empty)."""
@@ -731,7 +731,7 @@ def _summary(comp: _Computation, spiro: dict[str, Any], vols: dict[str, Any],
         "obstruction": obstruction, "obstruction_severity": sev, "restriction": restriction,
         "hyperinflation": hyperinflation, "air_trapping": air_trapping,
         "dlco": np.where(stop, None, _level(dlco_z)), "kco": np.where(stop, None, _level(kco_z)),
-        "bdr": _any_true_of(bdr22), "bdr_2005": _any_true_of(bdr05),
+        "bdr": _any_true(*bdr22), "bdr_2005": _any_true(*bdr05),
         "extrapolated": np.logical_or.reduce(
             [item["extrapolated"] for block in (spiro, vols, diff) for item in block.values()]
             or [np.zeros(m, dtype=bool)]),
@@ -754,13 +754,6 @@ def _z_used(diff: dict[str, Any], adjusted: dict[str, Any], param: str,
         return z
     adj = adjusted[param]
     return np.where(adj["applies"] & ~np.isnan(adj["z"]), adj["z"], z)
-
-
-def _any_true_of(flags: list[Tri]) -> Tri:
-    """``any(flags) if flags else None`` of the bronchodilator step, over rows (unknown = absent)."""
-    known = np.logical_or.reduce([f != -1 for f in flags])
-    true = np.logical_or.reduce([f == 1 for f in flags])
-    return _tri(true, known)
 
 
 # --------------------------------------------------------------------------- the table

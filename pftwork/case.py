@@ -87,13 +87,20 @@ def read_case_file(path: str | Path) -> dict[str, Any]:
     """Read a JSON case file into a dictionary (``CaseError`` if it is not readable JSON)."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        text = path.read_text(encoding="utf-8-sig")  # a byte-order mark is skipped
     except OSError as exc:
-        raise CaseError(str(path), "<file>", "a readable case file", exc.strerror) from None
+        raise CaseError(str(path), "<file>", "a readable case file",
+                        exc.strerror or type(exc).__name__) from None
+    except UnicodeDecodeError as exc:
+        raise CaseError(str(path), f"byte {exc.start}", "a UTF-8 text file (JSON)",
+                        "is this a binary or differently encoded file?") from None
     try:
         data = json.loads(text)
     except json.JSONDecodeError as exc:
         raise CaseError(str(path), f"line {exc.lineno}", "valid JSON", exc.msg) from None
+    except (ValueError, RecursionError) as exc:  # a number too long to read; nesting too deep
+        raise CaseError(str(path), "<file>", "a JSON case file of ordinary size and depth",
+                        str(exc)[:120]) from None
     if not isinstance(data, dict):
         raise CaseError(str(path), type(data).__name__, "a JSON object (pftwork-case/1)")
     return data
@@ -128,6 +135,10 @@ class _Loader:
     def case(self) -> Case:
         raw = self.raw
         fmt = raw.get("format")
+        if fmt is None and "nbformat" in raw and "cells" in raw:
+            raise CaseError("format", fmt, f'"{CASE_FORMAT}"',
+                            "this is a Jupyter notebook, not a case file (worksheet notebooks "
+                            "are read by pftwork verify and pftwork present)")
         if fmt is None:
             self.warn("format", f"missing; read as {CASE_FORMAT}")
         elif fmt != CASE_FORMAT:
@@ -339,7 +350,7 @@ class _Loader:
         _known(block, path, {"unit", "DLCO", "VA", "KCO", "hemoglobin_g_dl", "cohb_percent",
                              "trials"})
         unit = block.get("unit")
-        if unit not in DIFFUSION_UNITS:
+        if not isinstance(unit, str) or unit not in DIFFUSION_UNITS:
             raise CaseError(f"{path}.unit", unit, '"SI" (mmol/min/kPa) or "traditional" '
                             "(mL/min/mmHg): pftwork never guesses the diffusion unit")
         reported = self.diffusion_values(block, path, unit, ("DLCO", "VA", "KCO"))
@@ -454,10 +465,12 @@ class _Loader:
                 age = subject.age_years - (test.date - date).days / 365.25
                 if age < 3:
                     raise CaseError(f"{hp}.test.date", t.get("date"),
-                                    "a date when the subject was at least 3 years old")
+                                    "a date when the subject was at least 3 years old "
+                                    f"(subject.age_years {subject.age_years:g} on test.date "
+                                    f"{test.date.isoformat()})")
             if date is not None and test.date is not None and date > test.date:
                 raise CaseError(f"{hp}.test.date", t.get("date"),
-                                f"a date before this test ({test.date.isoformat()})")
+                                f"a date before this test (test.date {test.date.isoformat()})")
             height = _number(s.get("height_cm"), f"{hp}.subject.height_cm", 80.0, 250.0, "cm")
             entries.append(HistoryEntry(
                 date=date, age_years=age, height_cm=height if height else subject.height_cm,
@@ -482,17 +495,27 @@ class _Loader:
                           "check the volumes")
 
 
-def _copy_json(value: Any) -> Any:
-    """A deep copy of JSON-like data (much faster than ``copy.deepcopy`` for long curves)."""
+def _copy_json(value: Any, path: str = "", depth: int = 0) -> Any:
+    """A deep copy of JSON-like data (much faster than ``copy.deepcopy`` for long curves).
+
+    Raises ``CaseError`` naming the path where the nesting passes ``_MAX_DEPTH`` levels (no case
+    field is nested that deep; deeper data would exhaust the interpreter's recursion limit).
+    """
+    if depth > _MAX_DEPTH and isinstance(value, (Mapping, list, tuple)):
+        raise CaseError(path or "case", "[…]" if isinstance(value, (list, tuple)) else "{…}",
+                        f"JSON nested at most {_MAX_DEPTH} levels deep")
     if isinstance(value, Mapping):
-        return {k: _copy_json(v) for k, v in value.items()}
+        return {k: _copy_json(v, f"{path}.{k}" if path else str(k), depth + 1)
+                for k, v in value.items()}
     if isinstance(value, (list, tuple)):
         if set(map(type, value)) <= _FAST:  # a flat list of numbers or text (raw curves)
             return list(value)
-        return [v if isinstance(v, _SCALARS) else _copy_json(v) for v in value]
+        return [v if isinstance(v, _SCALARS) else _copy_json(v, f"{path}[{i}]", depth + 1)
+                for i, v in enumerate(value)]
     return copy.deepcopy(value) if not isinstance(value, _SCALARS) else value
 
 
+_MAX_DEPTH = 64
 _SCALARS = (int, float, str, bool, type(None))
 _FAST = frozenset(_SCALARS)
 
@@ -518,15 +541,29 @@ def _number(value: Any, path: str, lo: float, hi: float, unit: str, *, required:
         if required:
             raise CaseError(path, None, f"a number in {unit}")
         return None
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
+    if not _is_number(value):  # numpy numbers (from a DataFrame row) are numbers too
         raise CaseError(path, value, f"a number in {unit} between {lo:g} and {hi:g}")
-    value = float(value)
+    try:
+        value = float(value)
+    except OverflowError:  # an integer beyond the float range
+        raise CaseError(path, _shown(value), f"a finite number in {unit}") from None
     if not math.isfinite(value):
         raise CaseError(path, value, f"a finite number in {unit}")
     if not lo <= value <= hi:
         use_hint = hint if (hint and (value > hi or "metres" in hint or "inches" in hint)) else None
         raise CaseError(path, value, f"{unit} between {lo:g} and {hi:g}", use_hint)
     return value
+
+
+def _shown(value: Any) -> Any:
+    """``value``, or a short stand-in for an integer too large to print or convert."""
+    return "an integer beyond the float range" if isinstance(value, int) and abs(value) > 1e308 else value
+
+
+def _is_number(value: Any) -> bool:
+    """A real number (Python or numpy), not a boolean."""
+    return (isinstance(value, (int, float, np.integer, np.floating))
+            and not isinstance(value, (bool, np.bool_)))
 
 
 def _text(value: Any, path: str) -> str | None:
@@ -569,12 +606,18 @@ def _curve(block: Any, path: str) -> Curve:
         value = block.get(key)
         if not isinstance(value, list) or not value:
             raise CaseError(f"{path}.{key}", value, "a non-empty list of numbers")
+        if not set(map(type, value)) <= {int, float}:  # no text, booleans or nested lists
+            bad = [i for i, v in enumerate(value) if not _is_number(v)]
+            if bad:
+                raise CaseError(f"{path}.{key}[{bad[0]}]", value[bad[0]],
+                                "a flat list of numbers only")
         try:
             arr = np.asarray(value, dtype=float)
-        except (TypeError, ValueError):
-            raise CaseError(f"{path}.{key}", "[…]", "a list of numbers only") from None
-        if arr.ndim != 1:
-            raise CaseError(f"{path}.{key}", "[…]", "a flat list of numbers")
+        except OverflowError:  # an integer beyond the float range
+            arr = np.array([v if abs(v) < 1e308 else math.inf for v in value], dtype=float)
+        if not np.all(np.isfinite(arr)):
+            i = int(np.argmin(np.isfinite(arr)))
+            raise CaseError(f"{path}.{key}[{i}]", _shown(value[i]), "finite numbers (no NaN or infinity)")
         arrays[key] = arr
     if arrays["time_s"].size != arrays["volume_l"].size:
         raise CaseError(f"{path}.volume_l", f"{arrays['volume_l'].size} samples",

@@ -8,9 +8,11 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from collections.abc import Sequence
 from pathlib import Path
+from typing import NoReturn
 
 from ._version import __version__
 from .errors import EquationSetError, PftworkError
@@ -21,9 +23,16 @@ CAUTION_LINE = ("Decision support only: the signing physician decides; local pro
                 "licensed practice prevail. Not a certified medical device.")
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with the one-line error of design.md §4 (no usage block on stderr)."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(2, f"{self.prog}: error: {_one_line(message)} (see {self.prog} --help)\n")
+
+
 def _parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="pftwork", description="Documented, auditable PFT "
-                                "interpretation worksheets. " + CAUTION_LINE)
+    p = _Parser(prog="pftwork", description="Documented, auditable PFT "
+                "interpretation worksheets. " + CAUTION_LINE)
     p.add_argument("--version", action="version", version=f"pftwork {__version__}")
     sub = p.add_subparsers(dest="command", required=True)
 
@@ -171,7 +180,11 @@ def cmd_demo(args: argparse.Namespace) -> int:
     from .interpret import interpret
 
     out = Path(args.out)
-    out.mkdir(parents=True, exist_ok=True)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise _usage("--out", args.out, "a folder that can be created and written",
+                     exc.strerror) from None
     paths = demo_cases() if args.all else [data_path(DEMO_CASE)]
     worst = 0
     for path in paths:
@@ -193,11 +206,19 @@ def cmd_demo(args: argparse.Namespace) -> int:
     return worst
 
 
-def _usage(field: str, value: object, expected: str) -> PftworkError:
+def _usage(field: str, value: object, expected: str, hint: str | None = None) -> PftworkError:
     from .errors import FieldError
 
-    return FieldError(field, value, expected)
+    return FieldError(field, value, expected, hint)
 
+
+def _one_line(text: str) -> str:
+    """The message on one line (design.md §4: exit 2 comes with exactly one stderr line)."""
+    return " ".join(str(text).split())
+
+
+#: Exit status of a defect inside pftwork (sysexits.h EX_SOFTWARE); 2 stays "bad input".
+INTERNAL_ERROR = 70
 
 COMMANDS = {"interpret": cmd_interpret, "worksheet": cmd_worksheet, "verify": cmd_verify,
             "present": cmd_present, "demo": cmd_demo, "batch": cmd_batch}
@@ -206,13 +227,27 @@ COMMANDS = {"interpret": cmd_interpret, "worksheet": cmd_worksheet, "verify": cm
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``pftwork`` console script."""
     args = _parser().parse_args(argv)
+    where = f"pftwork {args.command}: error:"
     try:
         return COMMANDS[args.command](args)
     except (PftworkError, EquationSetError) as exc:
-        print(f"pftwork {args.command}: error: {exc}", file=sys.stderr)
+        print(f"{where} {_one_line(str(exc))}", file=sys.stderr)
         return 2
     except BrokenPipeError:  # e.g. piped into head
         return 0
+    except OSError as exc:  # a file that cannot be read or written, named by the system
+        name = exc.filename if exc.filename is not None else "a file"
+        message = (f"{name}: expected a readable input or a writable output path — "
+                   f"{exc.strerror or exc}")
+        print(f"{where} {_one_line(message)}", file=sys.stderr)
+        return 2
+    except Exception as exc:  # a defect in pftwork, not in the input: one line, not a traceback
+        if os.environ.get("PFTWORK_DEBUG"):
+            raise
+        message = (f"internal error ({type(exc).__name__}: {exc}); please report it (set "
+                   "PFTWORK_DEBUG=1 to see the traceback)")
+        print(f"{where} {_one_line(message)}", file=sys.stderr)
+        return INTERNAL_ERROR
 
 
 if __name__ == "__main__":

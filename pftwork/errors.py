@@ -77,5 +77,8 @@ def _show(value: Any) -> str:
         return f"{value:g}"
     if isinstance(value, str):
         return repr(value)
-    text = repr(value)
+    try:
+        text = repr(value)
+    except ValueError:  # e.g. an int too long to print (Python's int-to-str digit limit)
+        return f"<{type(value).__name__} too long to show>"
     return text if len(text) <= 60 else text[:57] + "..."

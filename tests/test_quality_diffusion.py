@@ -164,3 +164,24 @@ class TestErrors:
         q = assess_diffusion([])
 
         assert q.grade is None and q.notes
+
+
+class TestRepeatableMean:
+    """DLCO-2017 reporting table (standards.md §4.2, VERIFIED [S26]): the reported value is the
+    mean of acceptable, *repeatable* manoeuvres; a grade-A outlier beyond 0.67 mmol/min/kPa
+    (2 mL/min/mmHg) of every other grade-A test is left out."""
+
+    def test_outlier_left_out(self) -> None:
+        """8.0 and 8.4 agree (0.4); 9.5 is 1.1 away from both -> mean 8.2, not 8.63."""
+        q = assess_diffusion([_t(dlco=8.0), _t(dlco=8.4), _t(dlco=9.5)], largest_vc_l=VC)
+
+        assert (q.grade, q.repeatable) == ("A", True)
+        assert q.reported["DLCO"] == pytest.approx(8.2)
+        assert any("#3" in n and "left out" in n for n in q.notes)
+
+    def test_not_repeatable_keeps_all(self) -> None:
+        """No repeatable pair: mean of every grade-A test, with the not-repeatable note."""
+        q = assess_diffusion([_t(dlco=7.0), _t(dlco=8.0)], largest_vc_l=VC)
+
+        assert q.repeatable is False
+        assert q.reported["DLCO"] == pytest.approx(7.5)

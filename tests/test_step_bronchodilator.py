@@ -106,3 +106,42 @@ class TestStep:
         step = bronchodilator(CASE, _values(), {}, OK)
 
         assert "INTERP-2022" in step.source and "INTERP-2005" in step.source
+
+
+class TestPartialJudgement:
+    """"No response" needs both FEV1 and FVC judged; a response in either is a response
+    (INTERP-2022: FEV1 or FVC > 10 % of predicted; ATS/ERS 2005: FEV1 and/or FVC)."""
+
+    @staticmethod
+    def _case(post: dict) -> dict:
+        return {"format": "pftwork-case/1",
+                "subject": {"id": "bd", "sex": "female", "age_years": 40.0, "height_cm": 165.0},
+                "spirometry": {"pre": {"FEV1": 2.40, "FVC": 3.40}, "post": post}}
+
+    def test_fev1_only_without_response_is_undecided(self):
+        """Post-BD FEV1 only, +60 mL: no response in FEV1, FVC unknown -> null, not False."""
+        from pftwork.interpret import interpret
+
+        step = interpret(self._case({"FEV1": 2.46})).step("bronchodilator")
+
+        assert step.data["bdr"] is None
+        assert step.data["bdr_2005"] is None
+        assert "cannot be excluded" in step.conclusion
+
+    def test_fev1_only_with_response_is_a_response(self):
+        """Post-BD FEV1 only, +500 mL (> 10 % of predicted, >= 12 % and >= 200 mL): positive."""
+        from pftwork.interpret import interpret
+
+        step = interpret(self._case({"FEV1": 2.90})).step("bronchodilator")
+
+        assert step.data["bdr"] is True
+        assert step.data["bdr_2005"] is True
+
+    def test_both_judged_without_response_is_negative(self):
+        """Both judged, both small: False under both rules."""
+        from pftwork.interpret import interpret
+
+        step = interpret(self._case({"FEV1": 2.46, "FVC": 3.45})).step("bronchodilator")
+
+        assert step.data["bdr"] is False
+        assert step.data["bdr_2005"] is False

@@ -176,3 +176,35 @@ class TestHistoryValues:
         assert vals["FEV1"]["measured"] == 2.7
         assert vals["FEV1"]["age_years"] == pytest.approx(48.0, abs=0.01)
         assert vals["FEV1"]["z"] is not None
+
+
+class TestWording:
+    """The text labels a change in z as a change, so it is not read as the current z-score
+    (INTERP-2022 reports change over time as change in z / CCS; standards.md §3.6)."""
+
+    def test_z_change_labelled(self):
+        """FEV1 2.00 -> 1.70 L: the text says 'z change', never a bare 'z -0.xx'."""
+        step = interpret(_case(1.70, [("2025-06-01", 2.00)])).step("change")
+        dz = step.data["changes"]["FEV1"]["z_change"]
+
+        assert f"z change {dz:+.2f}" in step.conclusion
+        assert f", z {dz:+.2f}" not in step.conclusion
+
+
+class TestCcsDomain:
+    """INTERP-2022 CCS: r = 0.642 - 0.04*years + 0.020*age (standards.md §3.6, VERIFIED
+    [S17a]); CCS divides by sqrt(1 - r^2), so r >= 1 (age ~17.9 y, interval of days) has no
+    score — the step says so instead of failing."""
+
+    def test_r_at_or_above_one_no_crash(self):
+        """Age 17.97 y at the earlier test, 10 days apart: r = 1.0006 -> no CCS, no exception."""
+        case = {"format": "pftwork-case/1",
+                "subject": {"id": "c-r1", "sex": "male", "age_years": 18.0, "height_cm": 175.0},
+                "test": {"date": "2026-06-11"},
+                "spirometry": {"pre": {"FEV1": 3.9, "FVC": 4.6}},
+                "history": [{"test": {"date": "2026-06-01"},
+                             "spirometry": {"pre": {"FEV1": 3.95, "FVC": 4.6}}}]}
+        step = interpret(case).step("change")
+
+        assert step.data["ccs"] is None
+        assert "not defined" in step.conclusion

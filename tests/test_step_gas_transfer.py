@@ -195,3 +195,26 @@ class TestQualityGate:
 
         assert result.quality["DLCO_grade"] == "F"
         assert (result.step("gas_transfer").status, result.summary["dlco"]) == ("not_assessed", None)
+
+
+class TestAnaemiaWording:
+    """INTERP-2022 lists anaemia among causes of a low DLCO with normal VA and low KCO
+    (standards.md §3.7, VERIFIED [S17d]); once the predicted value is Hb-adjusted (DLCO-2017,
+    Cotes form) anaemia no longer explains a DLCO that stays low, so it is not offered."""
+
+    def test_hb_adjusted_low_dlco_does_not_suggest_anaemia(self):
+        """DLCO z -3, VA normal, Hb 12.0 g/dL (female factor 0.954, Cotes form, standards.md §4.4)."""
+        data = dl_case(-3.0, hemoglobin_g_dl=12.0)
+        data["diffusion"]["KCO"] = round(data["diffusion"]["DLCO"] / data["diffusion"]["VA"], 4)
+        step = interpret(data).step("gas_transfer")
+
+        assert (step.data["reading"], step.data["adjusted"]) == ("vascular", True)
+        assert "or anaemia" not in step.conclusion
+        assert "Hb is allowed for" in step.conclusion
+
+    def test_without_hb_anaemia_still_listed(self):
+        """Without Hb the table's anaemia stays in the reading (and in the caveat)."""
+        step = interpret(dl_case(-3.0)).step("gas_transfer")
+
+        assert step.data["reading"] == "vascular"
+        assert "anaemia" in step.conclusion

@@ -54,3 +54,22 @@ class TestResistance:
         result = interpret(_case(3.0, {"sRaw": {"uln": 1.2}}))
 
         assert (result.summary["pattern"], result.summary["resistance_elevated"]) == ("normal", True)
+
+
+class TestCaseUnit:
+    """sRaw given in cmH2O*s is compared with lab limits in that same unit (design.md §2:
+    the lab's limits are in the parameter's own unit; 1 kPa = 10.197 cmH2O, SI definition of
+    the cmH2O, 98.0665 Pa)."""
+
+    def test_cmh2o_against_cmh2o_limits(self):
+        """29.6 cmH2O*s (= 2.90 kPa*s) against a lab ULN of 12.2 cmH2O*s is elevated."""
+        case = _case(lab={"sRaw": {"predicted": 9.2, "uln": 12.2}})
+        case["airway_resistance"] = {"sRaw": 29.6, "Raw": 3.0, "unit": "cmH2O*s"}
+        result = interpret(case)
+        item = result.values["resistance"]["sRaw"]
+
+        assert (item["measured"], item["unit"]) == (pytest.approx(29.6), "cmH2O*s")
+        assert result.values["resistance"]["Raw"]["unit"] == "cmH2O*s/L"
+        assert result.values["resistance"]["Raw"]["measured"] == pytest.approx(3.0)
+        assert result.step("resistance").data["elevated"] is True
+        assert item["percent_predicted"] == pytest.approx(100 * 29.6 / 9.2)

@@ -45,7 +45,7 @@ class TestPatternOf:
         (False, False, True, False, "non-specific"),
         (False, None, None, True, "PRISm"),
         (False, False, False, False, "normal"),
-        (None, False, None, None, "normal"),
+        (None, False, None, None, None),              # TLC normal, no FEV1/FVC: no pattern
         (None, None, None, None, None),               # nothing to judge
     ])
     def test_table(self, obs, restr, nonspec, prism, expected):
@@ -101,3 +101,55 @@ class TestSynthesis:
         assert "airflow obstruction" in f.conclusion
         assert f.caveats == CAUTIONS
         assert any("signing physician" in c for c in f.caveats)
+
+
+class TestStatementWithVolumeFindings:
+    """The statement never calls lung volumes normal while reporting hyperinflation or air
+    trapping (INTERP-2022 Table 8 / standards.md §3.2: TLC > ULN and RV/TLC > ULN are
+    abnormal lung-volume findings; from memory)."""
+
+    def test_hyperinflation_not_called_normal_volumes(self):
+        """Normal spirometry with TLC above the ULN: no 'lung volumes within normal limits'."""
+        result = interpret(case(0.0, 0.0, 2.5))
+        text = result.step("synthesis").conclusion
+
+        assert result.summary["hyperinflation"] is True
+        assert "lung volumes within normal limits" not in text
+        assert "Hyperinflation" in text
+
+    def test_plain_normal_still_says_so(self):
+        """All normal: spirometry and lung volumes within normal limits."""
+        text = interpret(case(0.0, 0.0, 0.0)).step("synthesis").conclusion
+
+        assert "Spirometry and lung volumes within normal limits." in text
+
+    def test_low_fvc_with_high_tlc_not_called_normal_spirometry(self):
+        """FVC below the LLN (z < -1.645, INTERP-2022 §3.1) is never 'spirometry within normal
+        limits', even when TLC is high and no named pattern applies."""
+        result = interpret(case(0.0, -2.3, 2.0))
+        text = result.step("synthesis").conclusion
+
+        assert result.step("airflow").data["fvc_low"] is True
+        assert "within normal limits" not in text
+        assert "below the LLN" in text
+
+
+class TestNoPatternWithoutSpirometry:
+    """The pattern needs FEV1/FVC unless TLC itself is low (INTERP-2022 Table 8: obstruction is
+    defined on FEV1/FVC; design.md §5: undecidable outputs are null, not guessed)."""
+
+    def test_volumes_only_normal_tlc(self):
+        """TLC normal and no spirometry: pattern null, restriction false, text says why."""
+        data = case(0.0, 0.0, 0.0)
+        del data["spirometry"]
+        result = interpret(data)
+
+        assert (result.summary["pattern"], result.summary["restriction"]) == (None, False)
+        assert "without FEV1/FVC" in result.step("synthesis").conclusion
+
+    def test_volumes_only_low_tlc_is_restriction(self):
+        """TLC below the LLN is restriction even without spirometry."""
+        data = case(0.0, 0.0, -2.5)
+        del data["spirometry"]
+
+        assert interpret(data).summary["pattern"] == "restriction"

@@ -112,3 +112,19 @@ class TestExtrapolation:
         assert "diffusion.DLCO" in result.step("validity").data["extrapolated"]
         assert "extrapolated" in result.step("validity").conclusion
         assert result.summary["extrapolated"] is True
+
+
+def test_resistance_only_is_a_measured_value():
+    """A case with only plethysmographic sRaw is not 'no usable measured value': the
+    resistance step reports it (INTERP-2022: resistance may support the assessment;
+    design.md §2: every block but subject is optional)."""
+    from pftwork.interpret import interpret
+
+    result = interpret({"format": "pftwork-case/1",
+                        "subject": {"id": "v-r", "sex": "male", "age_years": 40,
+                                    "height_cm": 175},
+                        "airway_resistance": {"sRaw": 0.9, "unit": "kPa*s"}})
+
+    assert result.step("validity").data["stop"] is False
+    assert "sRaw 0.90" in result.step("resistance").conclusion
+    assert result.summary["pattern"] is None

@@ -135,3 +135,46 @@ class TestComplexRestriction:
 
         assert True is result.summary["complex_restriction"]
         assert result.summary["complex_class"] >= 1
+
+
+class TestMixedAndTrappingReadings:
+    """Readings that must not over-call (sources named per test)."""
+
+    def test_complex_class_not_applied_to_mixed(self):
+        """Clay et al., Chest 2017 (standards.md §3.3, VERIFIED [S22]) classify simple and
+        complex restriction among restrictions and count the mixed pattern separately; a mixed
+        defect gets no complex-restriction label."""
+        result = interpret(case(-2.5, -3.5, -1.8))
+        vol = result.step("volumes")
+
+        assert result.summary["pattern"] == "mixed"
+        assert (vol.data["complex_restriction"], vol.data["complex_class"]) == (None, None)
+        assert "Complex restriction" not in result.step("synthesis").conclusion
+
+    def test_complex_class_still_applied_to_pure_restriction(self):
+        """Same FVC/TLC with a normal ratio: complex restriction (Clay 2017)."""
+        result = interpret(case(0.0, -3.5, -1.8))
+
+        assert result.summary["complex_restriction"] is True
+
+    def test_high_ratio_from_low_tlc_not_called_air_trapping(self):
+        """RV/TLC > ULN (INTERP-2022, from memory) with a low TLC and RV within limits: the
+        ratio is raised by the small TLC; the text does not assert air trapping (common
+        practice: air trapping needs a raised RV, RV > ULN supportive, standards.md §3.2)."""
+        data = case(0.0, -3.5, -2.0)
+        tlc = data["volumes"]["TLC"]
+        data["volumes"]["RV"] = round(tlc * at("gli-2021", "RV/TLC", 2.5), 4)
+        result = interpret(data)
+        vol = result.step("volumes")
+
+        assert result.summary["air_trapping"] is True          # published threshold kept
+        assert vol.data["rv_high"] is False and vol.data["trapping_uncertain"] is True
+        assert "Air trapping:" not in vol.conclusion
+        assert "Air trapping." not in result.step("synthesis").conclusion
+        assert "not established" in result.step("synthesis").conclusion
+
+    def test_obstructive_trapping_still_called(self):
+        """Hyperinflated obstruction with high RV/TLC keeps the air-trapping sentence."""
+        result = interpret(case(-3.0, 0.5, 2.0, 2.5))
+
+        assert "Air trapping" in result.step("volumes").conclusion

@@ -357,17 +357,29 @@ def export_notebook(record: Any, path: str | Path, *, execute: bool = True,
         if "pftwork" not in base.metadata:
             raise NotebookError(f"{path}: exists and is not a pftwork worksheet; not overwritten")
     nb = build_notebook(record, deidentify=deidentify, key=_pseudonym_key(), base=base)
-    path.parent.mkdir(parents=True, exist_ok=True)  # also the kernel's working folder
-    if execute:
-        _check_current(nb.metadata["pftwork"]["record"], path)
-        try:
-            execute_notebook(nb, timeout=timeout, cwd=path.parent.resolve())
-        except Exception as exc:  # kernel missing or dead, timeout, or a failing check cell
-            first = str(exc).strip().splitlines()[-1:] or [""]
-            raise NotebookError(f"{path}: executing the worksheet notebook failed "
-                                f"({type(exc).__name__}: {first[0][:300]}); is ipykernel "
-                                "installed in this Python?") from exc
     tmp = path.with_name(path.name + ".tmp")
-    nbformat.write(nb, str(tmp))
-    os.replace(tmp, path)
+    try:  # fail before the kernel runs when the notebook cannot be written there
+        path.parent.mkdir(parents=True, exist_ok=True)  # also the kernel's working folder
+        tmp.write_bytes(b"")
+    except OSError as exc:
+        raise NotebookError(f"{path}: expected a writable notebook path; cannot write there "
+                            f"({exc.strerror or type(exc).__name__})") from None
+    try:
+        if execute:
+            _check_current(nb.metadata["pftwork"]["record"], path)
+            try:
+                execute_notebook(nb, timeout=timeout, cwd=path.parent.resolve())
+            except Exception as exc:  # kernel missing or dead, timeout, or a failing check cell
+                first = str(exc).strip().splitlines()[-1:] or [""]
+                raise NotebookError(f"{path}: executing the worksheet notebook failed "
+                                    f"({type(exc).__name__}: {first[0][:300]}); is ipykernel "
+                                    "installed in this Python?") from exc
+        try:
+            nbformat.write(nb, str(tmp))
+            os.replace(tmp, path)
+        except OSError as exc:
+            raise NotebookError(f"{path}: expected a writable notebook path; writing failed "
+                                f"({exc.strerror or type(exc).__name__})") from None
+    finally:
+        tmp.unlink(missing_ok=True)
     return path

@@ -68,10 +68,14 @@ def bronchodilator(case: Case, values: dict[str, Any], quality: dict[str, Any],
     flags22: list[bool] = []
     flags05: list[bool] = []
     parts: list[str] = []
+    grades = (quality.get("spirometry") or {}) if quality else {}
+    unusable = [p for p in ("FEV1", "FVC")
+                if any(((grades.get(phase) or {}).get(f"{p}_grade")) == "F"
+                       for phase in ("pre", "post"))]
     for p in ("FEV1", "FVC"):
         pre, post = value(values, "pre", p, "measured"), value(values, "post", p, "measured")
         pred = value(values, "pre", p, "predicted")
-        if pre is None or post is None:
+        if pre is None or post is None or p in unusable:
             continue
         key = p.lower()
         pct_b, ml, pos05 = bdr_2005(pre, post)
@@ -86,16 +90,18 @@ def bronchodilator(case: Case, values: dict[str, Any], quality: dict[str, Any],
             text += f", {pct_p:+.1f} % of predicted"
         parts.append(text + ").")
     if not flags05:
-        return not_assessed("bronchodilator", TITLE, "Bronchodilator response not assessed: "
-                            "pre- and post-bronchodilator FEV1 or FVC are not both available.",
-                            _KEYS, rule=RULE, source=SOURCE)
-    data["bdr"] = any(flags22) if flags22 else None
-    data["bdr_2005"] = any(flags05)
+        why = (f"{' and '.join(unusable)} unusable (grade F) before or after bronchodilator"
+               if unusable else "pre- and post-bronchodilator FEV1 or FVC are not both available")
+        return not_assessed("bronchodilator", TITLE, f"Bronchodilator response not assessed: "
+                            f"{why}.", _KEYS, rule=RULE, source=SOURCE)
+    # A response in either parameter is a response; "no response" needs both FEV1 and FVC judged.
+    data["bdr"] = _either(flags22)
+    data["bdr_2005"] = _either(flags05)
     data["discordant"] = None if data["bdr"] is None else data["bdr"] != data["bdr_2005"]
     pre_rz, post_rz = value(values, "pre", "FEV1/FVC"), value(values, "post", "FEV1/FVC")
     if pre_rz is not None and post_rz is not None and pre_rz < Z_LLN:
         data["ratio_normalised"] = post_rz >= Z_LLN
-    parts.insert(0, _headline(data))
+    parts.insert(0, _headline(data, judged_2022=len(flags22)))
     if data["discordant"]:
         parts.append("The 2022 and 2005 rules disagree here: the 2022 rule (% of predicted) is "
                      "the primary result; the 2005 rule (% of baseline and mL) is shown for "
@@ -112,14 +118,25 @@ def bronchodilator(case: Case, values: dict[str, Any], quality: dict[str, Any],
                    SOURCE, tuple(caveats), data)
 
 
-def _headline(data: dict[str, Any]) -> str:
-    if data["bdr"] is None:
+def _either(flags: list[bool]) -> bool | None:
+    """True if any parameter responded; False only when FEV1 and FVC were both judged."""
+    if any(flags):
+        return True
+    return False if len(flags) == 2 else None
+
+
+def _headline(data: dict[str, Any], judged_2022: int) -> str:
+    if data["bdr"] is None and judged_2022 == 0:
         head = "Significant response not assessable under INTERP-2022 (no predicted value)"
+    elif data["bdr"] is None:
+        head = ("No significant response in the one parameter that could be judged; a response "
+                "cannot be excluded without both FEV1 and FVC (INTERP-2022)")
     elif data["bdr"]:
         head = "Significant bronchodilator response (INTERP-2022, > 10 % of predicted)"
     else:
         head = "No significant bronchodilator response (INTERP-2022, > 10 % of predicted)"
-    return head + f"; 2005 rule: {'positive' if data['bdr_2005'] else 'negative'}."
+    rule05 = {True: "positive", False: "negative", None: "not decidable"}[data["bdr_2005"]]
+    return head + f"; 2005 rule: {rule05}."
 
 
 def _caveats(case: Case) -> list[str]:

@@ -189,7 +189,7 @@ def change(case: Case, values: dict[str, Any], quality: dict[str, Any], validity
     parts = [f"Compared with the test of {last_h.date or 'an earlier date'} "
              f"({years:.1f} years earlier):"]
     for p, c in changes.items():
-        dz = f", z {c['z_change']:+.2f}" if c["z_change"] is not None else ""
+        dz = f", z change {c['z_change']:+.2f}" if c["z_change"] is not None else ""
         parts.append(f"{p} {c['before']:.2f} -> {c['now']:.2f} {c['unit']} ({c['percent']:+.1f} %"
                      f"{dz}){' — significant' if c['significant'] else ''}.")
     sig = [c for c in changes.values() if c["significant"]]
@@ -214,7 +214,11 @@ def _children_or_adults(case: Case, sex: str, last: dict[str, Any], now: dict[st
         return
     age1 = fev1_before["age_years"]
     if age1 < CHILD_AGE_LIMIT:
-        if fev1_now.get("z") is not None and fev1_before.get("z") is not None and years > 0:
+        r = 0.642 - 0.04 * years + 0.020 * age1
+        if r >= 1.0:  # late adolescence and a short interval: the formula gives no score
+            parts.append(f"FEV1 conditional change score not defined (r {r:.3f} >= 1 at age "
+                         f"{age1:.1f} over {years:.2f} years).")
+        elif fev1_now.get("z") is not None and fev1_before.get("z") is not None and years > 0:
             score, r = ccs(fev1_before["z"], fev1_now["z"], years, age1)
             data["ccs"] = {"score": score, "r": r, "significant": abs(score) > 1.96}
             parts.append(f"FEV1 conditional change score {score:.2f} (r {r:.3f}): "

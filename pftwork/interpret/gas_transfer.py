@@ -192,7 +192,12 @@ def gas_transfer(case: Case, values: dict[str, Any], quality: dict[str, Any],
         if lvl is not None:
             parts.append(f"{name} {lvl} (z {z:.2f}).")
     if data["reading"]:
-        parts.append(_READINGS[data["reading"]])
+        reading = _READINGS[data["reading"]]
+        if (data["reading"] == "vascular" and adjusted and case.diffusion is not None
+                and case.diffusion.hemoglobin_g_dl is not None):  # Hb already allowed for
+            reading = reading.replace(", or anaemia.", " (Hb is allowed for in the predicted "
+                                      "value, so anaemia does not explain it).")
+        parts.append(reading)
     va = value(values, "diffusion", "VA", "measured")
     tlc = value(values, "volumes", "TLC", "measured")
     data["va_tlc"] = va / tlc if va and tlc else None

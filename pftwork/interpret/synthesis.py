@@ -15,7 +15,8 @@ SOURCE = ("INTERP-2022 Table 8 (obstruction, restriction, mixed; non-specific pa
           "and severity by z-score; the statement itself is composed by pftwork")
 RULE = ("Mixed when obstruction and a TLC below the LLN coexist; otherwise obstruction, or "
         "restriction (TLC below the LLN); with a preserved ratio and a low FEV1 or FVC, "
-        "non-specific when TLC is normal and PRISm when TLC was not measured; otherwise normal. "
+        "non-specific when TLC is normal and PRISm when TLC was not measured; otherwise normal "
+        "(no pattern without FEV1/FVC unless TLC shows restriction). "
         "Severity is taken from the z-score of the variable that defines the pattern: FEV1 for "
         "obstruction and mixed, TLC for restriction, the lower of FEV1 and FVC otherwise.")
 #: The values ``pattern`` may take (design.md §5).
@@ -50,7 +51,7 @@ def pattern_of(obstruction: bool | None, restriction: bool | None, nonspecific: 
         return "non-specific"
     if prism:
         return "PRISm"
-    if obstruction is None and restriction is None:
+    if obstruction is None:  # without FEV1/FVC a normal TLC does not make the pattern normal
         return None
     return "normal"
 
@@ -112,21 +113,32 @@ def synthesis(case: Case, values: dict[str, Any], quality: dict[str, Any],
 def _statement(d: dict[str, Any], findings: dict[str, Finding]) -> str:
     parts: list[str] = []
     pattern = d["pattern"]
-    if pattern is None:
+    if pattern is None and d["restriction"] is False:
+        parts.append("No restriction (TLC not below the LLN); no ventilatory pattern can be "
+                     "given without FEV1/FVC.")
+    elif pattern is None:
         parts.append("No ventilatory pattern can be given (neither FEV1/FVC nor TLC available).")
     else:
-        vol = " and lung volumes" if d["restriction"] is False and pattern == "normal" else ""
+        vol = (" and lung volumes" if d["restriction"] is False and pattern == "normal"
+               and not (d["hyperinflation"] or d["air_trapping"]) else "")
         sev = f"{d['severity'].capitalize()} " if d["severity"] else ""
         phrase = _PHRASE[pattern].format(sev=sev, vol=vol)
+        air = findings["airflow"].data
+        if pattern == "normal" and (air.get("fev1_low") or air.get("fvc_low")):
+            # e.g. TLC above the ULN: no named pattern, but spirometry is not normal
+            phrase = ("No obstruction or restriction, but FEV1 and/or FVC below the LLN with a "
+                      "preserved FEV1/FVC and a TLC that is not reduced.")
         parts.append(phrase[0].upper() + phrase[1:])
-        if pattern == "normal" and d["obstruction"] is None:
-            parts[-1] = "No restriction; spirometry not available."
     if d["complex_restriction"]:
         parts.append(f"Complex restriction (class {d['complex_class']}).")
+    uncertain = bool(findings["volumes"].data.get("trapping_uncertain"))
     extra = [w for w, flag in (("hyperinflation", d["hyperinflation"]),
-                               ("air trapping", d["air_trapping"])) if flag]
+                               ("air trapping", d["air_trapping"] and not uncertain)) if flag]
     if extra:
         parts.append(" and ".join(extra).capitalize() + ".")
+    if d["air_trapping"] and uncertain:
+        parts.append("Raised RV/TLC with a low TLC and RV not raised (air trapping not "
+                     "established).")
     if d["dlco"]:
         sev = f" ({d['dlco_severity']})" if d["dlco_severity"] else ""
         parts.append(f"Gas transfer {d['dlco']}{sev}" + (f", KCO {d['kco']}" if d["kco"] else "")

@@ -24,7 +24,7 @@ LOW_GRADES = frozenset("DEU")
 
 def _has_measured(values: dict[str, Any]) -> bool:
     return any(item.get("measured") is not None
-               for block in ("pre", "post", "volumes", "diffusion")
+               for block in ("pre", "post", "volumes", "diffusion", "resistance")
                for item in (values.get(block) or {}).values())
 
 

@@ -27,6 +27,7 @@ from pftwork.interpret.gas_transfer import (
     cohb_factor,
     hb_factor,
 )
+from pftwork.units import CMH2O_PER_KPA
 
 __all__ = [
     "DEFAULT_EQUATIONS",
@@ -394,12 +395,16 @@ def compute_values(case: Case, equations: dict[str, str], quality: QualityResult
     out["diffusion"] = _diffusion_values(case, equations["diffusion"], quality, sex, notes)
     res = case.airway_resistance
     if res is not None:
+        # The case holds sRaw/Raw in kPa*s (kPa*s/L); report them in the case's own unit, the
+        # unit of the lab's limits compared with them (as diffusion is reported in its own unit).
+        own = "cmH2O*s" if res.unit == "cmH2O*s" else "kPa*s"
+        scale = CMH2O_PER_KPA if own == "cmH2O*s" else 1.0
         for param in ("sRaw", "Raw"):
             value = getattr(res, param)
             if _finite(value):
-                unit = res.unit if param == "sRaw" else "kPa*s/L"
-                item = dict.fromkeys(_ENTRY_KEYS) | {"measured": float(value), "unit": unit,
-                                                     "equation": None}
+                unit = own if param == "sRaw" else f"{own}/L"
+                item = dict.fromkeys(_ENTRY_KEYS) | {"measured": float(value) * scale,
+                                                     "unit": unit, "equation": None}
                 out["resistance"][param] = _with_lab(item, lab_ref.get(param))
     return out
 

@@ -24,7 +24,7 @@ RULE = ("Restriction needs a measured TLC below the LLN; with airflow obstructio
 COMPLEX_LIMIT = 10.0
 _KEYS = ("restriction", "mixed", "hyperinflation", "air_trapping", "rv_high", "nonspecific",
          "prism", "complex_restriction", "complex_class", "restriction_severity", "tlc_z",
-         "rv_tlc_z", "rv_z")
+         "rv_tlc_z", "rv_z", "trapping_uncertain")
 
 
 def complex_class(tlc_pct: float | None, fvc_pct: float | None) -> int | None:
@@ -86,7 +86,7 @@ def volumes(case: Case, values: dict[str, Any], quality: dict[str, Any], validit
                            "(INTERP-2022), least of all with a low FEV1/FVC.")
     else:
         status = _classify_tlc(tlc_z, obstruction, preserved, spiro_low, values, data, parts)
-    _trapping(rvtlc_z, rv_z, data, parts)
+    _trapping(rvtlc_z, rv_z, data, parts, level(tlc_z))
     if status == "normal" and data["air_trapping"]:
         status = "air_trapping"
     evidence = {p: value(values, "volumes", p, "measured") for p in ("TLC", "RV", "RV/TLC", "FRC")}
@@ -125,7 +125,11 @@ def _classify_tlc(tlc_z: float, obstruction: bool | None, preserved: bool | None
         kind = "Mixed obstructive and restrictive defect" if data["mixed"] else "Restriction"
         parts.append(f"{kind}: TLC {tlc:.2f} L is below the LLN (z {tlc_z:.2f}; "
                      f"{data['restriction_severity']} on TLC z).")
-        _complex(values, data, parts)
+        if data["mixed"]:
+            parts.append("Simple/complex restriction (Clay et al. 2017) is not graded in a mixed "
+                         "defect: the obstruction itself lowers FVC relative to TLC.")
+        else:
+            _complex(values, data, parts)
         status = "mixed" if data["mixed"] else "restriction"
     elif data["nonspecific"]:
         parts.append(f"Non-specific pattern: FEV1 or FVC below the LLN with a preserved FEV1/FVC "
@@ -155,14 +159,23 @@ def _complex(values: dict[str, Any], data: dict[str, Any], parts: list[str]) -> 
 
 
 def _trapping(rvtlc_z: float | None, rv_z: float | None, data: dict[str, Any],
-              parts: list[str]) -> None:
+              parts: list[str], tlc_level: str | None = None) -> None:
     data["rv_high"] = None if rv_z is None else rv_z > Z_ULN
     if rvtlc_z is None:
         if data["rv_high"]:
             parts.append(f"RV above the ULN (z {rv_z:.2f}); RV/TLC not available.")
         return
     data["air_trapping"] = rvtlc_z > Z_ULN
-    if data["air_trapping"]:
+    # A ratio raised by a low TLC while RV itself is not raised (e.g. expiratory muscle weakness
+    # in restriction) is not good evidence of air trapping (common practice).
+    data["trapping_uncertain"] = bool(data["air_trapping"] and tlc_level == "low"
+                                      and data["rv_high"] is False)
+    if data["trapping_uncertain"]:
+        parts.append(f"RV/TLC above the ULN (z {rvtlc_z:.2f}) with a low TLC and RV not raised "
+                     f"(z {rv_z:.2f}): the high ratio comes from the reduced TLC with a preserved RV "
+                     "(e.g. expiratory muscle weakness) rather than from established air "
+                     "trapping.")
+    elif data["air_trapping"]:
         support = " with RV also above the ULN" if data["rv_high"] else ""
         parts.append(f"Air trapping: RV/TLC above the ULN (z {rvtlc_z:.2f}){support}.")
     elif data["rv_high"]:

@@ -25,7 +25,9 @@ the grade.
 
 Repeatability: two grade-A tests within 0.67 mmol/min/kPa (2 mL/min/mmHg; DLCO-2017, FROM
 MEMORY / VERIFIED-2nd), compared after rounding to 0.001. Reported value (DLCO, VA, KCO, IVC,
-breath-hold): mean of the grade-A tests; one grade-A test alone; otherwise the mean of the
+breath-hold): mean of the grade-A tests that are within the limit of another grade-A test when
+any two are (acceptable and repeatable, DLCO-2017 reporting table [S26]), else of all grade-A
+tests; one grade-A test alone; otherwise the mean of the
 best-graded (B-D) tests with a caution; nothing from grade F (standards.md §4.3). Session grade:
 the grade of the tests reported.
 """
@@ -192,8 +194,7 @@ def _summarise(ms: tuple[DiffusionManeuver, ...], vc: float | None) -> Diffusion
     a_tests = [m for m in ms if m.grade == "A"]
     repeatable: bool | None = None
     if len(a_tests) >= 2:
-        repeatable = any(round(abs(x.values["DLCO"] - y.values["DLCO"]), 3)
-                         <= DLCO_REPEATABILITY_SI for x, y in combinations(a_tests, 2))
+        repeatable = any(_within(x, y) for x, y in combinations(a_tests, 2))
         if not repeatable:
             notes.append("DLCO: no two grade-A tests within 0.67 mmol/min/kPa "
                          "(2 mL/min/mmHg); not repeatable")
@@ -204,6 +205,13 @@ def _summarise(ms: tuple[DiffusionManeuver, ...], vc: float | None) -> Diffusion
         notes.append("DLCO: all manoeuvres grade F; no value reported")
         return DiffusionQuality("F", {}, ms, repeatable, tuple(notes))
     used = [m for m in gradable if m.grade == best]
+    if best == "A" and repeatable:  # mean of the acceptable tests that are repeatable [S26]
+        paired = [m for m in a_tests if any(_within(m, o) for o in a_tests if o is not m)]
+        left = [m.index + 1 for m in a_tests if m not in paired]
+        if left:
+            notes.append("DLCO: grade-A test(s) #" + ", #".join(map(str, left)) + " not within "
+                         "0.67 mmol/min/kPa of another grade-A test; left out of the mean")
+        used = paired
     if best != "A":
         notes.append(f"DLCO: no grade-A manoeuvre; reported value is the mean of the grade-{best} "
                      "tests — interpret with caution")
@@ -211,6 +219,11 @@ def _summarise(ms: tuple[DiffusionManeuver, ...], vc: float | None) -> Diffusion
     if unchecked:
         notes.append(f"DLCO: not checked for lack of data: {', '.join(unchecked)}")
     return DiffusionQuality(best, _mean(used), ms, repeatable, tuple(notes))
+
+
+def _within(x: DiffusionManeuver, y: DiffusionManeuver) -> bool:
+    """Two tests' DLCO within the repeatability limit (compared after rounding to 0.001)."""
+    return round(abs(x.values["DLCO"] - y.values["DLCO"]), 3) <= DLCO_REPEATABILITY_SI
 
 
 def _mean(ms: Any) -> dict[str, float]:

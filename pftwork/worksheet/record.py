@@ -483,7 +483,7 @@ class WorksheetRecord:
                        created_utc=d["created_utc"], updated_utc=d.get("updated_utc"),
                        marked_identifiers=d.get("marked_identifiers"),
                        events=d.get("events"), now=now)
-        except (KeyError, TypeError, ValueError) as exc:
+        except (KeyError, TypeError, ValueError, AttributeError, IndexError) as exc:
             raise WorksheetError(f"Worksheet record is incomplete or malformed: {exc!r}") from None
 
     @staticmethod

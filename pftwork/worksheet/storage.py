@@ -116,11 +116,18 @@ def load_record(path: str | Path) -> WorksheetRecord:
     except OSError as exc:
         raise WorksheetError(f"Cannot read worksheet autosave {path}: {exc.strerror or exc}"
                              + _bak_hint(path)) from None
+    except UnicodeDecodeError as exc:
+        raise WorksheetError(f"Worksheet autosave {path} is corrupt (not UTF-8 text: byte "
+                             f"{exc.start}); it was left as it is." + _bak_hint(path)) from None
     try:
         data: Any = json.loads(text)
     except json.JSONDecodeError as exc:
         raise WorksheetError(f"Worksheet autosave {path} is corrupt (not JSON: {exc.msg} at "
                              f"line {exc.lineno}); it was left as it is." + _bak_hint(path)
+                             ) from None
+    except (ValueError, RecursionError) as exc:  # a number too long to read; nesting too deep
+        raise WorksheetError(f"Worksheet autosave {path} is corrupt (not ordinary JSON: "
+                             f"{str(exc)[:120]}); it was left as it is." + _bak_hint(path)
                              ) from None
     try:
         return WorksheetRecord.from_dict(data)

@@ -169,3 +169,25 @@ class TestUpperAirwayIndices:
 
         assert d["knee"]["present"] is True
         assert "flags" in d["upper_airway"]
+
+
+class TestSuggestiveCombination:
+    """pftwork's own combination rule over the published indices (Empey, BMJ 1972: FEV1 mL /
+    PEF L/min > 10; Rotman et al., Chest 1975: four criteria, standards.md §3.8)."""
+
+    def test_empey_alone_is_suggestive(self):
+        """Empey > 10 on its own suggests upper-airway obstruction."""
+        assert upper_airway_indices(2.0, 3.0).suggestive  # 2000 mL / 180 L/min = 11.1
+
+    def test_single_rotman_criterion_is_not(self):
+        """FEV1/FEV0.5 = 1.6 (>= 1.5) with a normal Empey index is one criterion only."""
+        ua = upper_airway_indices(3.2, 8.0, FEV0_5=2.0)  # Empey 6.7
+
+        assert any("FEV0.5" in f for f in ua.flags)
+        assert not ua.suggestive
+
+    def test_two_rotman_criteria_are(self):
+        """FEV1/FEV0.5 >= 1.5 and FIF50 <= 100 L/min together suggest it."""
+        ua = upper_airway_indices(3.2, 8.0, FEV0_5=2.0, FEF50=1.5, FIF50=1.6)  # 96 L/min
+
+        assert ua.suggestive

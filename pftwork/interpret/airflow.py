@@ -69,7 +69,7 @@ def upper_airway_indices(values: dict[str, Any], curve_indices: dict[str, Any] |
     ua = _indices(m["FEV1"], m["PEF"], m["FEV0_5"], m["FEF50"], m["FIF50"])
     out = {"fev1_pef_ml_per_l_min": ua.fev1_pef_ml_per_l_min, "fev1_fev0_5": ua.fev1_fev0_5,
            "fif50_l_min": ua.fif50_l_min, "fef50_fif50": ua.fef50_fif50,
-           "flags": list(ua.flags), "from": "values"}
+           "flags": list(ua.flags), "suggestive": ua.suggestive, "from": "values"}
     computed = [k for k in ("fev1_pef_ml_per_l_min", "fev1_fev0_5", "fif50_l_min", "fef50_fif50")
                 if out[k] is not None]
     return out if computed else {"flags": [], "from": None}
@@ -128,10 +128,15 @@ def airflow(case: Case, values: dict[str, Any], quality: dict[str, Any],
         status = "normal"
     text += _gold_text(case, values, data, caveats)
     uao = upper_airway_indices(values, curve_indices)
-    data["upper_airway_flag"] = bool(uao["flags"]) if uao["from"] else None
-    if uao["flags"]:
+    suggestive = bool(uao.get("suggestive", bool(uao["flags"])))
+    data["upper_airway_flag"] = suggestive if uao["from"] else None
+    if suggestive:
         text += (" Consider upper-airway obstruction (" + "; ".join(uao["flags"]) + "): "
                  "confirm with the flow-volume loop shape, imaging or endoscopy.")
+    elif uao["flags"]:
+        caveats.append("A single upper-airway index beyond its threshold (" + "; ".join(
+            uao["flags"]) + ") is not suggestive on its own (pftwork's rule: Empey > 10, or two "
+            "of Rotman's criteria); look at the loop shape.")
     evidence = {"FEV1/FVC": ratio, "FEV1/FVC_z": ratio_z, "FEV1_z": fev1_z, "FVC_z": fvc_z,
                 "FEV1_percent_predicted": value(values, "pre", "FEV1", "percent_predicted"),
                 "FEV1/FVC_lln": value(values, "pre", "FEV1/FVC", "lln"),

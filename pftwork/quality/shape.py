@@ -77,6 +77,11 @@ class UpperAirwayIndices:
     (Rotman 1975: <= 100); ``fef50_fif50`` = FEF50/FIF50 (Rotman 1975: >= 1; INTERP-2005 /
     INTERP-2022 Table 3 read the inverse, FIF50/FEF50: ~1 fixed, < 1 variable extrathoracic,
     > 1 variable intrathoracic). ``flags`` lists the thresholds met, each naming its source.
+
+    ``suggestive`` is our own combination rule: Empey's index alone (> 10; healthy mean 7.3 in
+    Empey 1972), or at least two of Rotman's four criteria. A single Rotman criterion is not
+    enough, because FEV1/FEV0.5 near 1.5 and FEF50/FIF50 near 1 are also seen without any
+    upper-airway lesion, e.g. in COPD (from memory; Rotman et al. used the criteria together).
     """
 
     fev1_pef_ml_per_l_min: float | None
@@ -84,6 +89,7 @@ class UpperAirwayIndices:
     fif50_l_min: float | None
     fef50_fif50: float | None
     flags: tuple[str, ...]
+    suggestive: bool = False
 
 
 @dataclass(frozen=True)
@@ -212,7 +218,9 @@ def upper_airway_indices(FEV1: float | None, PEF: float | None, FEV0_5: float | 
         flags.append(f"FIF50 {fif50:.0f} L/min <= 100 (Rotman 1975)")
     if fef_fif is not None and round(fef_fif, 3) >= ROTMAN_FEF50_FIF50:
         flags.append(f"FEF50/FIF50 {fef_fif:.2f} >= 1 (Rotman 1975)")
-    return UpperAirwayIndices(empey, ratio05, fif50, fef_fif, tuple(flags))
+    rotman = sum("(Rotman 1975)" in f for f in flags)
+    suggestive = any("(Empey 1972)" in f for f in flags) or rotman >= 2
+    return UpperAirwayIndices(empey, ratio05, fif50, fef_fif, tuple(flags), suggestive)
 
 
 def shape_descriptors(analysis: CurveAnalysis) -> ShapeDescriptors:

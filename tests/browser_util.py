@@ -201,3 +201,13 @@ def lab_server(root: Path, home: Path, log_path: Path, env: Mapping[str, str] | 
             yield LabServer(url, token, proc)
         finally:
             _stop(proc)
+
+
+def skip_or_fail_without(why: str | None) -> None:
+    """Skip when a browser tool is missing (``why``), but fail when PFTWORK_REQUIRE_BROWSER=1 (CI)."""
+    import pytest
+
+    if why and os.environ.get("PFTWORK_REQUIRE_BROWSER") == "1":
+        pytest.fail(f"browser test required (PFTWORK_REQUIRE_BROWSER=1) but {why}")
+    if why:
+        pytest.skip(why)

@@ -10,11 +10,16 @@ decisions. A full-page screenshot is saved under the test's ``tmp_path``.
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import pytest
-from browser_util import CHROMIUM, CHROMIUM_ARGS, missing_browser_tools, voila_server
+from browser_util import (
+    CHROMIUM,
+    CHROMIUM_ARGS,
+    missing_browser_tools,
+    skip_or_fail_without,
+    voila_server,
+)
 
 from pftwork.interpret import STEP_IDS
 from pftwork.worksheet import load_record
@@ -33,11 +38,7 @@ STEP_TIMEOUT_MS = 20_000
 @pytest.fixture
 def page_url(tmp_path):
     """Voila serving the demo notebook, autosaving into tmp_path/autosave."""
-    why = missing_browser_tools()
-    if why and os.environ.get("PFTWORK_REQUIRE_BROWSER") == "1":
-        pytest.fail(f"browser test required (PFTWORK_REQUIRE_BROWSER=1) but {why}")
-    if why:
-        pytest.skip(why)
+    skip_or_fail_without(missing_browser_tools())
     autosave = tmp_path / "autosave"
     autosave.mkdir()
     with voila_server(DEMO, tmp_path / "voila.log",

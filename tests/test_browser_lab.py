@@ -15,13 +15,18 @@ under the test's ``tmp_path``.
 from __future__ import annotations
 
 import json
-import os
 import shutil
 import time
 from pathlib import Path
 
 import pytest
-from browser_util import CHROMIUM, CHROMIUM_ARGS, lab_server, missing_lab_tools
+from browser_util import (
+    CHROMIUM,
+    CHROMIUM_ARGS,
+    lab_server,
+    missing_lab_tools,
+    skip_or_fail_without,
+)
 
 import pftwork
 from pftwork.interpret import STEP_IDS, interpret
@@ -59,11 +64,7 @@ RUN_ALL_JS = """async () => {
 @pytest.fixture
 def lab(tmp_path):
     """JupyterLab serving a copy of the demo notebook; autosaves go to tmp_path/autosave."""
-    why = missing_lab_tools()
-    if why and os.environ.get("PFTWORK_REQUIRE_BROWSER") == "1":
-        pytest.fail(f"browser test required (PFTWORK_REQUIRE_BROWSER=1) but {why}")
-    if why:
-        pytest.skip(why)
+    skip_or_fail_without(missing_lab_tools())
     root, autosave = tmp_path / "root", tmp_path / "autosave"
     root.mkdir()
     autosave.mkdir()
